@@ -1,0 +1,384 @@
+"""One file in, findings out: prefilter, parse, one walk for all rules, then the
+decisions that apply to every rule (suppression comments, precedence, order).
+
+``analyse_source`` never raises for a bad file: it returns a ``FileResult`` with a
+``Problem``.
+"""
+from __future__ import annotations
+
+import ast
+import io
+import re
+import tokenize
+from dataclasses import dataclass, field
+from functools import lru_cache
+from typing import Iterable
+
+from .flow import AMBIGUOUS, Path, Ref, Scope, child_blocks, statements_with_paths
+from .model import Edit, FileResult, Finding, Fix, Problem, Span
+from .registry import Rule
+
+_SUPPRESS = re.compile(r"#\s*nanproof:\s*allow(-file)?(?:\[([^\]]*)\])?")
+_PY2_HINTS = re.compile(r"^\s*(print\s+[\"'\w]|exec\s+[\"'\w]|except\s+\w+\s*,\s*\w+\s*:)", re.M)
+
+
+@dataclass
+class Hit:
+    """What a rule's check yields: the node that completes the pattern and the message."""
+
+    node: ast.AST
+    message: str
+    fix: Fix | None = None
+    suggestion: str | None = None
+    covers: tuple[ast.AST, ...] = ()
+    severity: str | None = None  # a rule may raise or lower its default per finding
+
+
+@lru_cache(maxsize=64)
+def trigger_regex(triggers: tuple[str, ...]) -> re.Pattern:
+    return re.compile("|".join(rf"\b(?:{t})" for t in sorted(set(triggers))))
+
+
+def scope_for(node: ast.AST, parent: Scope) -> Scope:
+    registry = parent.module.cache.setdefault("scopes", {})
+    s = registry.get(id(node))
+    if s is None:
+        s = registry[id(node)] = Scope(node, parent)
+    return s
+
+
+class Analysis:
+    """State for analysing one parsed file."""
+
+    def __init__(self, path: str, text: str, tree: ast.Module, project: dict | None) -> None:
+        self.path = path
+        self.text = text
+        self.lines = text.splitlines(keepends=True)
+        self.tree = tree
+        self.project = project or {}
+        self.module = Scope(tree, None)
+        self.module.cache["analysis"] = self
+        self.module.cache["scopes"] = {id(tree): self.module}
+
+    # -- positions and text ------------------------------------------------------------
+    def _col(self, line: int, byte_col: int) -> int:
+        if line - 1 >= len(self.lines):
+            return byte_col
+        text = self.lines[line - 1]
+        if text.isascii():
+            return byte_col
+        return len(text.encode("utf-8")[:byte_col].decode("utf-8", "replace"))
+
+    def span(self, node: ast.AST) -> Span:
+        return Span(
+            node.lineno,
+            self._col(node.lineno, node.col_offset) + 1,
+            node.end_lineno,
+            self._col(node.end_lineno, node.end_col_offset) + 1,
+        )
+
+    def segment(self, node: ast.AST) -> str:
+        first, last = node.lineno - 1, node.end_lineno - 1
+        if first == last:
+            return self.lines[first].encode()[node.col_offset : node.end_col_offset].decode()
+        parts = [self.lines[first].encode()[node.col_offset :].decode()]
+        parts.extend(self.lines[first + 1 : last])
+        parts.append(self.lines[last].encode()[: node.end_col_offset].decode())
+        return "".join(parts)
+
+
+@dataclass
+class Context:
+    """What a rule's check sees: the node, where it is, and helpers to describe it."""
+
+    analysis: Analysis
+    node: ast.AST
+    scope: Scope
+    path: Path
+    stmt: ast.stmt
+
+    def ref(self, node: ast.AST | None = None) -> Ref:
+        return Ref(self.node if node is None else node, self.scope, self.path)
+
+    def text(self, node: ast.AST) -> str:
+        return self.analysis.segment(node)
+
+    def edit(self, node: ast.AST, text: str) -> Edit:
+        return Edit(self.analysis.span(node), text)
+
+    def fix(self, kind: str, node: ast.AST, text: str, *more: Edit) -> Fix:
+        """A fix replacing ``node`` by ``text`` (plus any further edits)."""
+        return Fix(kind, text, (self.edit(node, text), *more))
+
+
+# ---------------------------------------------------------------------------------------
+# Following helpers: what a function returns
+# ---------------------------------------------------------------------------------------
+def function_summary(fn_and_owner, depth: int = 0) -> str | None:
+    """The kind of value (softmax, sigmoid, ...) every ``return`` of a function gives."""
+    from .facts import origin
+
+    fn, owner = fn_and_owner
+    if owner is None:
+        return None
+    scope = scope_for(fn, owner)
+    if "returns" in scope.cache:
+        return scope.cache["returns"]
+    scope.cache["returns"] = None  # recursion guard
+    if isinstance(fn, ast.Lambda):
+        values = [Ref(fn.body, scope, ())]
+    else:
+        values = [Ref(s.value, scope, p) for s, p in statements_with_paths(fn) if isinstance(s, ast.Return) and s.value is not None]
+    kinds = {(o.kind if (o := origin(v, depth + 1)) else None) for v in values}
+    result = kinds.pop() if len(kinds) == 1 else None
+    scope.cache["returns"] = result
+    return result
+
+
+def project_summary(callee: Ref, binding, qual: str | None = None) -> str | None:
+    """The kind a function imported from another scanned module returns."""
+    analysis: Analysis = callee.scope.module.cache["analysis"]
+    if not analysis.project:
+        return None
+    if binding is not None:
+        stmt = binding.stmt
+        if not isinstance(stmt, ast.ImportFrom):
+            return None
+        name = binding.value.name
+        module = stmt.module or ""
+        level = stmt.level
+    elif qual is not None and "." in qual:
+        module, name = qual.rsplit(".", 1)
+        level = 0
+    else:
+        return None
+    parts = tuple(p for p in module.split(".") if p)
+    if level:
+        base = tuple(analysis.path.replace("\\", "/").split("/")[:-1])
+        base = base[: len(base) - (level - 1)] if level > 1 else base
+        wanted = [base + parts]
+    else:
+        wanted = None
+    for (mod_parts, fname), kind in analysis.project.items():
+        if fname != name:
+            continue
+        if mod_parts and mod_parts[-1] == "__init__":
+            mod_parts = mod_parts[:-1]
+        if wanted is not None:
+            if mod_parts in wanted:
+                return kind
+        elif parts and mod_parts[-len(parts):] == parts:
+            return kind
+    return None
+
+
+def module_parts(path: str) -> tuple[str, ...]:
+    p = path.replace("\\", "/")
+    for suffix in (".pyi", ".py"):
+        if p.endswith(suffix):
+            p = p[: -len(suffix)]
+    return tuple(x for x in p.split("/") if x not in ("", "."))
+
+
+# ---------------------------------------------------------------------------------------
+# The walk
+# ---------------------------------------------------------------------------------------
+def _candidate_lines(text: str, regex: re.Pattern) -> set[int]:
+    lines: set[int] = set()
+    pos = 0
+    line = 1
+    for m in regex.finditer(text):
+        line += text.count("\n", pos, m.start())
+        pos = m.start()
+        lines.add(line)
+    return lines
+
+
+def _overlaps(node: ast.AST, lines: set[int]) -> bool:
+    start = node.lineno
+    if getattr(node, "decorator_list", None):
+        start = min(d.lineno for d in node.decorator_list)
+    return any(start <= ln <= node.end_lineno for ln in lines)
+
+
+def _region(body: list, lines: set[int]) -> Iterable[ast.stmt]:
+    for stmt in body:
+        if not _overlaps(stmt, lines):
+            continue
+        if isinstance(stmt, ast.ClassDef):
+            yield stmt  # visited member by member below
+        else:
+            yield stmt
+
+
+def _walk(analysis: Analysis, dispatch: dict, lines: set[int]) -> list[tuple[Rule, Hit, Context]]:
+    hits: list[tuple[Rule, Hit, Context]] = []
+    module = analysis.module
+    stack: list[tuple[ast.AST, Scope, Path, ast.stmt]] = [(s, module, (), s) for s in reversed(list(_region(analysis.tree.body, lines)))]
+    while stack:
+        node, scope, path, stmt = stack.pop()
+        rules = dispatch.get(type(node))
+        if rules:
+            ctx = Context(analysis, node, scope, path, stmt)
+            for r in rules:
+                for hit in r.check(ctx) or ():
+                    hits.append((r, hit, ctx))
+        children: list[tuple[ast.AST, Scope, Path, ast.stmt]] = []
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
+            for d in node.decorator_list:
+                children.append((d, scope, path, node))
+            inner = scope_for(node, scope)
+            children.extend((d, scope, path, node) for d in (*node.args.defaults, *node.args.kw_defaults) if d is not None)
+            children.extend((s, inner, (), s) for s in node.body)
+        elif isinstance(node, ast.Lambda):
+            children.append((node.body, scope_for(node, scope), (), stmt))
+        elif isinstance(node, ast.ClassDef):
+            inner = scope_for(node, scope)
+            children.extend((b, scope, path, node) for b in (*node.decorator_list, *node.bases))
+            children.extend((s, inner, (), s) for s in node.body if _overlaps(s, lines))
+        elif isinstance(node, ast.stmt):
+            blocks = {id(b) for b, _ in child_blocks(node, path)}
+            for fld, value in ast.iter_fields(node):
+                if isinstance(value, ast.AST):
+                    children.append((value, scope, path, node))
+                elif isinstance(value, list) and id(value) not in blocks and fld != "cases":
+                    children.extend((v, scope, path, node) for v in value if isinstance(v, ast.AST))
+            for block, bpath in child_blocks(node, path):
+                children.extend((s, scope, bpath, s) for s in block)
+        else:
+            for child in ast.iter_child_nodes(node):
+                children.append((child, scope, path, stmt))
+        stack.extend(reversed(children))
+    return hits
+
+
+# ---------------------------------------------------------------------------------------
+# Decisions that apply to every rule
+# ---------------------------------------------------------------------------------------
+def _suppressions(text: str) -> tuple[dict[int, set[str] | None], set[str] | None]:
+    """Line -> rule ids silenced there (None: all), and the file-wide set (None: all)."""
+    per_line: dict[int, set[str] | None] = {}
+    whole: set[str] | None = set()
+    if "nanproof:" not in text:
+        return per_line, whole
+    try:
+        tokens = list(tokenize.generate_tokens(io.StringIO(text).readline))
+    except (tokenize.TokenError, SyntaxError, IndentationError):
+        return per_line, whole
+    for tok in tokens:
+        if tok.type != tokenize.COMMENT:
+            continue
+        m = _SUPPRESS.search(tok.string)
+        if not m:
+            continue
+        ids = None if m.group(2) is None else {x.strip() for x in m.group(2).split(",") if x.strip()}
+        if m.group(1):  # allow-file: on a line of its own
+            if tok.line.strip().startswith("#"):
+                whole = None if ids is None or whole is None else whole | ids
+        else:
+            line = tok.start[0]
+            prev = per_line.get(line, set())
+            per_line[line] = None if ids is None or prev is None else prev | ids
+    return per_line, whole
+
+
+def _silenced(f: Finding, per_line, whole) -> bool:
+    if whole is None or f.rule in whole:
+        return True
+    for line in {f.statement_line, f.span.line}:
+        if line in per_line and (per_line[line] is None or f.rule in per_line[line]):
+            return True
+    return False
+
+
+def _precedence(findings: list[Finding], rules: dict[str, Rule]) -> list[Finding]:
+    kept = []
+    for f in findings:
+        beaten = False
+        for g in findings:
+            if g is f or f.rule not in rules[g.rule].overrides:
+                continue
+            if g.span.contains(f.span) or any(c.contains(f.span) for c in g.covers):
+                beaten = True
+                break
+        if not beaten:
+            kept.append(f)
+    unique = {}
+    for f in kept:
+        unique.setdefault((f.rule, f.span), f)
+    return list(unique.values())
+
+
+def _not_python3(path: str, text: str, err: SyntaxError) -> Problem:
+    where = f" (line {err.lineno})" if err.lineno else ""
+    hint = "; looks like Python 2 code" if _PY2_HINTS.search(text) else ""
+    return Problem(path, f"not valid Python 3: {err.msg}{where}{hint}")
+
+
+def parse(path: str, text: str) -> ast.Module | Problem:
+    try:
+        return ast.parse(text, filename=path)
+    except SyntaxError as e:
+        return _not_python3(path, text, e)
+    except (ValueError, MemoryError, RecursionError) as e:
+        return Problem(path, f"cannot parse: {type(e).__name__}: {e}".splitlines()[0])
+
+
+def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None = None) -> FileResult:
+    """Analyse one file's text with the given rules."""
+    tree = parse(path, text)
+    if isinstance(tree, Problem):
+        return FileResult(path, problem=tree)
+    regex = trigger_regex(tuple(t for r in rules for t in r.triggers))
+    lines = _candidate_lines(text, regex) if rules else set()
+    if not lines:
+        return FileResult(path)
+    analysis = Analysis(path, text, tree, project)
+    dispatch: dict[type, list[Rule]] = {}
+    for r in rules:
+        for t in r.nodes:
+            dispatch.setdefault(t, []).append(r)
+    try:
+        hits = _walk(analysis, dispatch, lines)
+        findings = [_finding(analysis, r, h, c) for r, h, c in hits]
+        exports, imports = _links(analysis, lines)
+    except RecursionError:
+        return FileResult(path, problem=Problem(path, "expression nesting too deep to analyse"))
+    by_id = {r.id: r for r in rules}
+    per_line, whole = _suppressions(text)
+    findings = [f for f in _precedence(findings, by_id) if not _silenced(f, per_line, whole)]
+    findings.sort(key=Finding.sort_key)
+    return FileResult(path, tuple(findings), exports=exports, imports=imports)
+
+
+def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:
+    return Finding(
+        rule=rule.id,
+        severity=hit.severity or rule.severity,
+        path=analysis.path,
+        span=analysis.span(hit.node),
+        message=hit.message,
+        fix=hit.fix,
+        suggestion=hit.suggestion,
+        covers=tuple(analysis.span(n) for n in hit.covers),
+        statement_line=getattr(ctx.stmt, "lineno", 0),
+    )
+
+
+def _links(analysis: Analysis, lines: set[int]) -> tuple[tuple, tuple]:
+    """Module-level functions returning softmax/sigmoid, and names imported from
+    modules that are not frameworks: what the cross-file pass needs."""
+    from .names import framework_of
+
+    exports = []
+    imports = []
+    for stmt in analysis.tree.body:
+        if isinstance(stmt, (ast.FunctionDef, ast.AsyncFunctionDef)) and _overlaps(stmt, lines):
+            kind = function_summary((stmt, analysis.module))
+            if kind is not None:
+                exports.append((stmt.name, kind))
+        elif isinstance(stmt, ast.ImportFrom) and (stmt.level or not framework_of(stmt.module or "")):
+            imports.extend(a.asname or a.name for a in stmt.names)
+        elif isinstance(stmt, ast.Import):
+            imports.extend(a.asname or a.name for a in stmt.names if not framework_of(a.name))
+    return tuple(exports), tuple(imports)

@@ -1,0 +1,143 @@
+"""The command line: parse options, build a Config, call the API, print a report."""
+from __future__ import annotations
+
+import os
+import sys
+
+import click
+
+from . import __version__
+from .config import ConfigError
+
+FORMATS = ("text", "json", "sarif", "html")
+
+
+def _common(f):
+    opts = [
+        click.argument("paths", nargs=-1, type=click.Path()),
+        click.option("--format", "fmt", type=click.Choice(FORMATS), default="text", show_default=True, help="Report format."),
+        click.option("--output", type=click.Path(dir_okay=False, writable=True), help="Write the report to this file."),
+        click.option("--rule", "rules", multiple=True, metavar="ID", help="Run only this rule (repeatable)."),
+        click.option("--skip", "skip", multiple=True, metavar="ID", help="Do not run this rule (repeatable)."),
+        click.option("--changed-since", metavar="REF", help="Only findings on lines changed since the git revision REF."),
+        click.option("--jobs", type=click.IntRange(min=1), help="Worker processes (default: one per CPU)."),
+        click.option("--config", "config_file", type=click.Path(exists=True, dir_okay=False), help="Configuration file (default: nearest pyproject.toml with [tool.nanproof])."),
+    ]
+    for o in reversed(opts):
+        f = o(f)
+    return f
+
+
+def _config(paths, config_file, **cli):
+    from .config import build
+
+    try:
+        return build(list(paths), config_file, **cli)
+    except ConfigError as e:
+        raise click.UsageError(str(e)) from None
+
+
+def _color(output: str | None) -> bool:
+    return output is None and sys.stdout.isatty() and "NO_COLOR" not in os.environ
+
+
+def _render(result, fmt: str, output: str | None) -> None:
+    from importlib import import_module
+
+    report = import_module(f"nanproof.report.{fmt}")
+    text = report.render(result, color=_color(output))
+    if output:
+        with open(output, "w", encoding="utf-8") as fh:
+            fh.write(text)
+    else:
+        click.echo(text, nl=False)
+
+
+def _progress():
+    """A progress bar on standard error for long runs on a terminal, else nothing."""
+    if not sys.stderr.isatty():
+        return None, None
+    from .report.progress import Bar
+
+    bar = Bar()
+    return bar.update, bar.close
+
+
+def _missing_paths(paths) -> None:
+    missing = [p for p in paths if p != "-" and not os.path.exists(p)]
+    if missing:
+        raise click.UsageError(f"no such file or folder: {', '.join(missing)}")
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="nanproof")
+def cli() -> None:
+    """Find numerically unstable softmax, log-sum-exp, cross-entropy and sigmoid code."""
+
+
+@cli.command()
+@_common
+def scan(paths, fmt, output, rules, skip, changed_since, jobs, config_file):
+    """Analyse files and folders (default: the current folder) and report findings."""
+    from .api import scan as run_scan
+
+    paths = paths or (".",)
+    _missing_paths(paths)
+    config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs)
+    update, close = _progress()
+    try:
+        result = run_scan(list(paths), config, progress=update)
+    finally:
+        if close:
+            close()
+    _render(result, fmt, output)
+    sys.exit(result.exit_code)
+
+
+@cli.command()
+@click.argument("rule_id", metavar="RULE")
+def explain(rule_id):
+    """Show a rule's page: why it fails, a failing input, the rewrite, the fix kind."""
+    from .registry import get, known_ids
+
+    if rule_id not in known_ids():
+        raise click.UsageError(f"unknown rule id {rule_id!r}; `nanproof rules` lists them")
+    rule = get(rule_id)
+    head = f"{rule.id}  ({rule.family}, {rule.severity}, fix: {rule.fix or 'suggestion only'})\n\n"
+    text = rule.page()
+    if sys.stdout.isatty() and "NO_COLOR" not in os.environ:
+        from rich.console import Console
+        from rich.markdown import Markdown
+
+        Console().print(head)
+        Console().print(Markdown(text))
+    else:
+        click.echo(head + text)
+
+
+@cli.command("rules")
+def rules_cmd():
+    """List every rule: id, family, severity and fix kind."""
+    from .registry import all_rules
+
+    rows = [(r.id, r.family, r.severity, r.fix or "-", r.summary) for r in all_rules()]
+    widths = [max(len(row[i]) for row in rows + [("id", "family", "severity", "fix", "")]) for i in range(4)]
+    click.echo("  ".join(h.ljust(w) for h, w in zip(("id", "family", "severity", "fix"), widths)) + "  summary")
+    for row in rows:
+        click.echo("  ".join(c.ljust(w) for c, w in zip(row, widths)) + "  " + row[4])
+
+
+def main() -> None:
+    try:
+        cli.main(standalone_mode=False)
+    except click.exceptions.Exit as e:
+        sys.exit(e.exit_code)
+    except click.UsageError as e:
+        e.show()
+        sys.exit(2)
+    except click.Abort:
+        click.echo("Aborted.", err=True)
+        sys.exit(2)
+    except click.ClickException as e:
+        e.show()
+        sys.exit(2)

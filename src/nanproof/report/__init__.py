@@ -1,0 +1,1 @@
+"""Reports: one module per format, each a ``render(result, ...) -> str`` function."""

@@ -1,0 +1,1 @@
+"""Rule declarations, one module per family."""

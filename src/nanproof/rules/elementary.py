@@ -1,0 +1,1 @@
+"""Rules of the elementary family (see ../shared/spec rules catalogue)."""

@@ -1,0 +1,1 @@
+"""Rules of the loss family (see ../shared/spec rules catalogue)."""

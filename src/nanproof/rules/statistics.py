@@ -1,0 +1,1 @@
+"""Rules of the statistics family (see ../shared/spec rules catalogue)."""
