@@ -106,9 +106,37 @@ class Context:
     def edit(self, node: ast.AST, text: str) -> Edit:
         return Edit(self.analysis.span(node), text)
 
-    def fix(self, kind: str, node: ast.AST, text: str, *more: Edit) -> Fix:
-        """A fix replacing ``node`` by ``text`` (plus any further edits)."""
-        return Fix(kind, text, (self.edit(node, text), *more))
+    def fix(self, kind: str, edits: list[Edit] | tuple[Edit, ...], at: ast.AST | None = None) -> Fix:
+        """A fix made of ``edits``; its displayed replacement is the finding's node
+        (``at``, default the current node) with the edits applied, or the edited lines
+        when the edits lie elsewhere (a pattern spread over statements)."""
+        at = self.node if at is None else at
+        span = self.analysis.span(at)
+        line_edits = [e for e in edits if e.span.line != e.span.end_line or e.text.endswith("\n") is False]
+        if all(span.contains(e.span) for e in edits):
+            text = _apply(self.text(at), edits, span.line, span.column)
+        else:
+            first = min(e.span.line for e in line_edits or edits)
+            last = max(e.span.end_line for e in line_edits or edits)
+            raw = "".join(self.analysis.lines[first - 1 : last])
+            text = _apply(raw, [e for e in edits if first <= e.span.line and e.span.end_line <= last], first, 1).strip()
+        return Fix(kind, text, tuple(edits))
+
+
+def _apply(text: str, edits, line0: int, col0: int) -> str:
+    """Apply edits (spans relative to a text starting at line0:col0), last first."""
+    lines = text.splitlines(keepends=True) or [""]
+
+    def offset(line: int, col: int) -> int:
+        i = line - line0
+        base = sum(len(x) for x in lines[:i])
+        return base + (col - col0 if i == 0 else col - 1)
+
+    for e in sorted(edits, key=lambda e: (e.span.line, e.span.column), reverse=True):
+        a, b = offset(e.span.line, e.span.column), offset(e.span.end_line, e.span.end_column)
+        text = text[:a] + e.text + text[b:]
+        lines = text.splitlines(keepends=True) or [""]
+    return text
 
 
 # ---------------------------------------------------------------------------------------

@@ -446,17 +446,22 @@ def manual_softmax(ref: Ref) -> ManualSoftmax | None:
     node = ref.node
     if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div)):
         return None
-    num = exp_term(ref.child(node.left))
+    return softmax_parts(ref, ref.child(node.left), ref.child(node.right))
+
+
+def softmax_parts(division: Ref, num_ref: Ref, den_ref: Ref) -> ManualSoftmax | None:
+    """The numerator is an exp term and the denominator sums the same exp values."""
+    num = exp_term(num_ref)
     if num is None:
         return None
-    red = reduction(ref.child(node.right), "sum")
+    red = reduction(den_ref, "sum")
     if red is None:
         return None
-    if not (same(red.operand, ref.child(node.left)) or same(red.operand, num.exp)):
+    if not (same(red.operand, num_ref) or same(red.operand, num.exp)):
         den = exp_term(red.operand)
         if den is None or not same(den.arg, num.arg):
             return None
-    return ManualSoftmax(ref, num, red)
+    return ManualSoftmax(division, num, red)
 
 
 # ---------------------------------------------------------------------------------------
