@@ -86,7 +86,13 @@ def scan(paths, fmt, output, rules, skip, changed_since, jobs, config_file):
     config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs)
     update, close = _progress()
     try:
+        if changed_since:  # fail before the analysis, and even where nothing is found
+            from .gitdiff import check_revision
+
+            check_revision(paths, changed_since)
         result = run_scan(list(paths), config, progress=update)
+    except ConfigError as e:  # gitdiff.GitError: not a git repository, unknown REF
+        raise click.UsageError(str(e)) from None
     finally:
         if close:
             close()
