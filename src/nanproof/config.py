@@ -1,6 +1,7 @@
 """Run options as one frozen value."""
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 
 
@@ -29,12 +30,12 @@ _KEYS = {"rules": list, "skip": list, "exclude": list, "include-review": bool}
 
 def find_pyproject(start: str) -> str | None:
     """The nearest pyproject.toml upward from ``start`` that has a [tool.nanproof] table."""
-    import os
-
     here = os.path.abspath(start if os.path.isdir(start) else os.path.dirname(start) or ".")
     while True:
         candidate = os.path.join(here, "pyproject.toml")
-        if os.path.isfile(candidate) and "[tool.nanproof" in _read(candidate):
+        # Parse only files that mention the tool: a broken pyproject.toml of some
+        # enclosing project that does not configure us must not stop the run.
+        if os.path.isfile(candidate) and "nanproof" in _read(candidate) and _table(candidate) is not None:
             return candidate
         parent = os.path.dirname(here)
         if parent == here:
@@ -50,7 +51,8 @@ def _read(path: str) -> str:
         raise ConfigError(f"{path}: cannot read: {e}") from None
 
 
-def load_table(path: str) -> dict:
+def _table(path: str) -> dict | None:
+    """The file's [tool.nanproof] table, or None when it has none."""
     try:
         import tomllib
     except ModuleNotFoundError:  # Python 3.10
@@ -59,9 +61,19 @@ def load_table(path: str) -> dict:
         data = tomllib.loads(_read(path))
     except tomllib.TOMLDecodeError as e:
         raise ConfigError(f"{path}: not valid TOML: {e}") from None
-    table = data.get("tool", {}).get("nanproof", {}) if path.endswith("pyproject.toml") else data.get("tool", {}).get("nanproof", data)
-    if not isinstance(table, dict):
+    tool = data.get("tool", {})
+    table = tool.get("nanproof") if isinstance(tool, dict) else None
+    if table is not None and not isinstance(table, dict):
         raise ConfigError(f"{path}: [tool.nanproof] must be a table")
+    return table
+
+
+def load_table(path: str) -> dict:
+    """The settings in ``path``: its [tool.nanproof] table. A file that has none is an
+    error, since it was named on purpose."""
+    table = _table(path)
+    if table is None:
+        raise ConfigError(f"{path}: no [tool.nanproof] table; put the settings under [tool.nanproof]")
     return table
 
 
@@ -74,6 +86,14 @@ def check_rule_ids(ids, where: str) -> None:
         raise ConfigError(f"{where}: unknown rule id {', '.join(map(repr, unknown))}; known ids: {', '.join(sorted(known))}")
 
 
+def _anchor(pattern: str, base: str) -> str:
+    """A pattern with a slash is a path from the configuration file's folder (made
+    absolute here, a leading slash included); one without is matched against every
+    file and folder name."""
+    pattern = pattern.rstrip("/")
+    return os.path.normpath(os.path.join(base, pattern.lstrip("/"))) if "/" in pattern else pattern
+
+
 def from_table(table: dict, path: str) -> dict:
     """Validate a [tool.nanproof] table into keyword arguments for ``Config``."""
     out: dict = {}
@@ -84,21 +104,34 @@ def from_table(table: dict, path: str) -> dict:
         if not isinstance(v, want) or (want is list and not all(isinstance(x, str) for x in v)):
             kind = "a list of strings" if want is list else "true or false"
             raise ConfigError(f"{path}: [tool.nanproof] {k} must be {kind}, got {v!r}")
+        if k == "rules" and not v:
+            raise ConfigError(f"{path}: [tool.nanproof] rules is empty, which would run nothing; leave it out to run every rule")
         if k in ("rules", "skip"):
             check_rule_ids(v, f"{path}: [tool.nanproof] {k}")
-        out[k.replace("-", "_")] = frozenset(v) if k in ("rules", "skip") else tuple(v) if k == "exclude" else v
+        out[k.replace("-", "_")] = v
+    base = os.path.dirname(os.path.abspath(path))
+    out["exclude"] = tuple(_anchor(p, base) for p in out.get("exclude", ()))
+    for k in ("rules", "skip"):
+        if k in out:
+            out[k] = frozenset(out[k])
     return out
 
 
 def build(paths: list[str], config_file: str | None, **cli) -> Config:
-    """Configuration from the file (``--config`` or the nearest pyproject.toml), then the
-    command line on top. Raises ConfigError."""
+    """Configuration from the file (``--config``, else the nearest pyproject.toml upward
+    from the first PATH with a [tool.nanproof] table), then the command line on top:
+    ``rules`` replace the file's (and run even if the file skips them), ``skip`` adds to
+    the file's, other options replace the file's value when given (None or False: not
+    given). Raises ConfigError."""
     path = config_file or find_pyproject(paths[0] if paths and paths[0] != "-" else ".")
     values = from_table(load_table(path), path) if path else {}
-    for k in ("rules", "skip"):
-        if cli.get(k):
-            check_rule_ids(cli[k], f"--{k[:-1] if k == 'rules' else k}")
-            values[k] = frozenset(cli[k])
+    if cli.get("rules"):
+        check_rule_ids(cli["rules"], "--rule")
+        values["rules"] = frozenset(cli["rules"])
+        values["skip"] = values.get("skip", frozenset()) - values["rules"]
+    if cli.get("skip"):
+        check_rule_ids(cli["skip"], "--skip")
+        values["skip"] = values.get("skip", frozenset()) | frozenset(cli["skip"])
     for k in ("include_review", "jobs", "changed_since"):
         if cli.get(k) is not None and cli.get(k) is not False:
             values[k] = cli[k]

@@ -14,7 +14,10 @@ SUFFIXES = (".py", ".pyi")
 def _excluded(path: str, patterns: tuple[str, ...]) -> bool:
     p = PurePosixPath(path.replace(os.sep, "/"))
     for pat in patterns:
-        if fnmatch.fnmatch(str(p), pat) or p.match(pat) or any(fnmatch.fnmatch(part, pat) for part in p.parts):
+        if os.path.isabs(pat):  # anchored at the configuration file's folder
+            if fnmatch.fnmatch(os.path.abspath(path), pat):
+                return True
+        elif fnmatch.fnmatch(str(p), pat) or p.match(pat) or any(fnmatch.fnmatch(part, pat) for part in p.parts):
             return True
     return False
 
