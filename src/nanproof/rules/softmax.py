@@ -187,7 +187,7 @@ def _inner_axis(red: Reduction) -> bool:
     summary="dividing a 2-D array by its reduction over an inner axis without keepdims: wrong broadcast",
     fix="auto",
     nodes=_DIV,
-    triggers=(r"sum\s*\(", r"max\s*\(", r"mean\s*\(", r"norm\s*\("),
+    triggers=(r"sum\s*\(", r"max\s*\(", r"mean\s*\(", r"norm\s*\(", r"reduce_\w+\s*\("),
 )
 def normalize_missing_keepdims(ctx: Context):
     parts = _division(ctx)
@@ -550,7 +550,7 @@ _MODULES = {"torch.nn.Softmax", "torch.nn.LogSoftmax", "torch.nn.Softmin", "torc
     summary="PyTorch softmax / log_softmax / softmin without dim: deprecated implicit axis, wrong for 1-D and 3-D inputs",
     fix="review",
     nodes=(ast.Call,),
-    triggers=(r"softmax\s*\(", r"Softmax\s*\(", r"softmin\s*\(", r"Softmin\s*\("),
+    triggers=(r"(?:log_)?softmax\s*\(", r"(?:Log)?Softmax\s*\(", r"softmin\s*\(", r"Softmin\s*\("),
 )
 def softmax_implicit_dim(ctx: Context):
     call = ctx.node
@@ -749,7 +749,8 @@ def _needs_flag(ctx: Context, y: Ref) -> bool:
     summary="explicit n-by-n softmax Jacobian diag(y) - y y^T built to multiply a vector: O(n^2) where y * (g - <y, g>) is O(n)",
     fix="auto",
     nodes=(ast.BinOp, ast.AugAssign, ast.Assign, ast.Call),
-    triggers=(r"diag\w*\s*\(", r"outer\s*\(", r"einsum\s*\(", r"eye\s*\(", r"jac\w*\s*\(", r"ger\s*\(", r"unsqueeze\s*\(", r"None\s*\]"),
+    triggers=(r"diag\w*\s*\(", r"outer\s*\(", r"einsum\s*\(", r"eye\s*\(", r"jac\w*\s*\(", r"ger\s*\(", r"unsqueeze\s*\(", r"None\s*\]",
+              r"\w+\s*\[\s*\w+\s*,\s*\w+\s*\]\s*=", r"\w+\s*\[\s*\w+\s*\]\s*\[\s*\w+\s*\]\s*="),
 )
 def softmax_jacobian_dense(ctx: Context):
     node = ctx.node
