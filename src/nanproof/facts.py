@@ -312,12 +312,8 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
             lr = reduction(l, "min")  # min(x) - x
             return lr is not None and same(lr.operand, r)
         if isinstance(node.op, (ast.Mult, ast.Div)):
-            # A factor of unknown sign is taken as positive (a temperature, a scale):
-            # ``(x - x.max()) / T`` stays shifted.
-            ln, rn = nonpos(l, depth + 1), nonpos(r, depth + 1)
-            lneg = _negative_const(node.left)
-            rneg = _negative_const(node.right)
-            return (ln and not rneg) or (rn and not lneg and isinstance(node.op, ast.Mult))
+            (sl, kl), (sr, kr) = _factor_sign(l, depth + 1), _factor_sign(r, depth + 1)
+            return sl * sr < 0 and (kl or kr)
         return False
     oc = op_of(ref)
     if oc is not None:
@@ -328,9 +324,20 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
     return False
 
 
-def _negative_const(node: ast.expr) -> bool:
-    c = _const(node)
-    return c is not None and c < 0
+def _factor_sign(ref: Ref, depth: int) -> tuple[int, bool]:
+    """(sign, known) of a factor. A factor of unknown sign is assumed positive (a
+    temperature, a scale, an inverse temperature): ``(x - x.max()) / T`` and
+    ``-beta * (E - E.min())`` stay bounded. A product counts as signed only when at
+    least one factor's sign is known, so ``-beta * E`` is not taken as bounded."""
+    if nonneg(ref, depth):
+        return 1, True
+    if nonpos(ref, depth):
+        return -1, True
+    node = strip(ref).node
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub):
+        sign, known = _factor_sign(ref.child(node.operand), depth + 1)
+        return -sign, known
+    return 1, False
 
 
 def bounded_above(ref: Ref, depth: int = 0) -> bool:
