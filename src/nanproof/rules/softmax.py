@@ -319,6 +319,8 @@ def gathered(ref: Ref) -> Ref | None:
         if isinstance(second, (ast.Name, ast.Subscript, ast.Call, ast.Attribute)) and not isinstance(first, ast.Constant):
             return ref.child(node.value)
         return None
+    if isinstance(node, ast.Subscript) and isinstance(node.slice, (ast.Name, ast.Subscript, ast.Attribute)):
+        return ref.child(node.value)  # p[y]: the probability of one sample's label
     if isinstance(node, ast.Call):
         f = node.func
         if isinstance(f, ast.Attribute) and f.attr == "gather" and node.args:

@@ -1,0 +1,111 @@
+"""The pipeline around the rules: discovery, reading, parsing, parallel runs, positions,
+name resolution and data flow."""
+import os
+
+from conftest import findings, ids
+from nanproof.api import scan
+from nanproof.config import Config
+from nanproof.discover import discover
+
+UNSTABLE = "import numpy as np\ndef probs(z):\n    return np.exp(z) / np.sum(np.exp(z))\n"
+
+
+def test_discovery_skips_hidden_virtualenv_and_build_folders_but_not_explicit_files(tmp_path):
+    for rel in ("pkg/a.py", ".hidden/b.py", "venv/c.py", "build/d.py", "pkg/__pycache__/e.py", "env2/f.py", "pkg/g.pyi", "pkg/h.txt"):
+        p = tmp_path / rel
+        p.parent.mkdir(parents=True, exist_ok=True)
+        p.write_text("x = 1\n")
+    (tmp_path / "env2" / "pyvenv.cfg").write_text("home = /usr\n")
+    files, problems = discover([str(tmp_path), str(tmp_path / ".hidden" / "b.py")])
+    rel = sorted(os.path.relpath(f, tmp_path) for f in files)
+    assert rel == [".hidden/b.py", "pkg/a.py", "pkg/g.pyi"]
+    assert problems == []
+
+
+def test_a_missing_path_is_a_problem_and_the_rest_is_scanned(tmp_path):
+    (tmp_path / "ok.py").write_text(UNSTABLE)
+    result = scan([str(tmp_path / "ok.py"), str(tmp_path / "nope.py")], Config(jobs=1))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"]
+    assert [p.path for p in result.problems] == [str(tmp_path / "nope.py")]
+    assert result.exit_code == 3
+
+
+def test_bad_files_become_one_line_problems_while_others_are_analysed(tmp_path):
+    (tmp_path / "good.py").write_text(UNSTABLE)
+    (tmp_path / "py2.py").write_text('print "hello"\n')
+    (tmp_path / "binary.py").write_bytes(b"\x00\x01\x02exp(")
+    (tmp_path / "latin.py").write_bytes(b"# -*- coding: utf-8 -*-\nx = '\xe9'\n")
+    (tmp_path / "broken.py").write_text("def f(:\n    np.exp(x)\n")
+    result = scan([str(tmp_path)], Config(jobs=1))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"]
+    messages = {os.path.basename(p.path): p.message for p in result.problems}
+    assert set(messages) == {"py2.py", "binary.py", "latin.py", "broken.py"}
+    assert "Python 2" in messages["py2.py"]
+    assert all("\n" not in m for m in messages.values())
+
+
+def test_utf8_bom_and_latin1_cookie_files_are_read(tmp_path):
+    (tmp_path / "bom.py").write_bytes(b"\xef\xbb\xbf" + UNSTABLE.encode())
+    (tmp_path / "latin.py").write_bytes(b"# -*- coding: latin-1 -*-\n# caf\xe9\n" + UNSTABLE.encode())
+    result = scan([str(tmp_path)], Config(jobs=1))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"] * 2
+    assert result.problems == ()
+
+
+def test_columns_count_code_points_not_bytes():
+    (f,) = findings("import numpy as np\ndef probs(z):\n    s = 'é'; return np.exp(z) / np.sum(np.exp(z))\n")
+    line = "    s = 'é'; return np.exp(z) / np.sum(np.exp(z))"
+    assert f.span.column == line.index("np.exp") + 1
+    assert f.span.end_column == len(line) + 1
+
+
+def test_parallel_run_gives_the_same_findings_in_the_same_order(tmp_path):
+    for i in range(12):
+        (tmp_path / f"m{i:02d}.py").write_text(UNSTABLE + ("\n" * i) + "def lse(x):\n    return np.log(np.sum(np.exp(x)))\n")
+    one = scan([str(tmp_path)], Config(jobs=1))
+    two = scan([str(tmp_path)], Config(jobs=2))
+    assert one == two and len(one.findings) == 24
+
+
+def test_helper_imported_from_another_scanned_module_is_followed(tmp_path):
+    pkg = tmp_path / "pkg"
+    pkg.mkdir()
+    (pkg / "__init__.py").write_text("")
+    (pkg / "helpers.py").write_text("import numpy as np\ndef to_probs(z):\n    e = np.exp(z - z.max())\n    return e / e.sum()\n")
+    (pkg / "train.py").write_text("import numpy as np\nfrom .helpers import to_probs\ndef nll(z, y):\n    return -np.log(to_probs(z)[y])\n")
+    (pkg / "other.py").write_text("import numpy as np\nfrom pkg.helpers import to_probs\ndef lp(z):\n    return np.log(to_probs(z))\n")
+    result = scan([str(tmp_path)], Config(jobs=1))
+    assert sorted((os.path.basename(f.path), f.rule) for f in result.findings) == [("other.py", "log-of-softmax"), ("train.py", "cross-entropy-from-probs")]
+
+
+def test_very_deep_expressions_do_not_crash_the_run(tmp_path):
+    deep = "import numpy as np\nx = " + " + ".join(["np.exp(1)"] * 3000) + "\n"
+    (tmp_path / "deep.py").write_text(deep)
+    (tmp_path / "ok.py").write_text(UNSTABLE)
+    result = scan([str(tmp_path)], Config(jobs=1))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"]
+
+
+def test_names_resolve_through_every_import_style():
+    for header, exp, total in [
+        ("import numpy as np", "np.exp", "np.sum"),
+        ("import numpy", "numpy.exp", "numpy.sum"),
+        ("from numpy import exp, sum as total", "exp", "total"),
+        ("import jax.numpy as jnp", "jnp.exp", "jnp.sum"),
+        ("from jax import numpy as jnp", "jnp.exp", "jnp.sum"),
+        ("import torch", "torch.exp", "torch.sum"),
+        ("import tensorflow as tf", "tf.math.exp", "tf.reduce_sum"),
+        ("import tensorflow.compat.v1 as tf", "tf.exp", "tf.reduce_sum"),
+    ]:
+        src = f"{header}\ndef probs(z):\n    e = {exp}(z)\n    return e / {total}(e)\n"
+        assert ids(src) == ["softmax-unshifted"], header
+
+
+def test_a_local_function_named_like_a_framework_one_is_not_the_framework_one():
+    assert ids("def exp(v):\n    return v\ndef log(v):\n    return v\ndef f(z):\n    return log(sum(exp(z)))\n") == []
+
+
+def test_reassignment_after_a_shift_is_followed_in_order():
+    # the shift is undone by a later assignment: the softmax is unshifted again
+    src = "import numpy as np\ndef f(z, w):\n    z = z - z.max()\n    z = w * 1e3\n    e = np.exp(z)\n    return e / e.sum()\n"
+    assert ids(src) == ["softmax-unshifted"]
