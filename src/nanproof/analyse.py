@@ -182,7 +182,7 @@ def project_summary(callee: Ref, binding, qual: str | None = None) -> str | None
         return None
     parts = tuple(p for p in module.split(".") if p)
     if level:
-        base = tuple(analysis.path.replace("\\", "/").split("/")[:-1])
+        base = module_parts(analysis.path)[:-1]
         base = base[: len(base) - (level - 1)] if level > 1 else base
         wanted = [base + parts]
     else:
