@@ -4,14 +4,13 @@ from __future__ import annotations
 import hashlib
 import importlib.resources
 import json
-import textwrap
 from urllib.parse import urlsplit
 
 import pytest
 
-from nanproof.api import scan
-from nanproof.config import Config
-from nanproof.model import Edit, Finding, Fix, Problem, ScanResult, Span
+from reportutil import constructed, scan_legacy
+
+from nanproof.model import Finding, ScanResult, Span
 from nanproof.registry import all_rules
 from nanproof.report import sarif
 
@@ -39,44 +38,12 @@ def _errors(validator, doc) -> list[str]:
 
 @pytest.fixture
 def legacy(tmp_path, monkeypatch):
-    """A small legacy tree: two files with findings, one clean, one not valid Python."""
-    monkeypatch.chdir(tmp_path)
-    files = {
-        "legacy/io/probs.py": """
-            import numpy as np
-
-            def probs(z):
-                return np.exp(z) / np.sum(np.exp(z))
-            """,
-        "legacy/train/lse.py": """
-            import numpy as np
-
-            def total(x):
-                return np.log(np.sum(np.exp(x)))
-            """,
-        "legacy/clean.py": "x = 1\n",
-        "legacy/broken.py": "def f(:\n",
-    }
-    for name, text in files.items():
-        path = tmp_path / name
-        path.parent.mkdir(parents=True, exist_ok=True)
-        path.write_text(textwrap.dedent(text).lstrip(), encoding="utf-8")
-    return scan(["legacy"], Config(jobs=1))
+    return scan_legacy(tmp_path, monkeypatch)
 
 
 def _constructed() -> ScanResult:
-    """Findings built by hand: a review fix with two edits (one an insertion), a
-    multi-line span with a suggestion only, and a path with a space and a backslash-free
-    non-ASCII name (URIs must percent-encode them)."""
-    review = Fix("review", "torch.log_softmax(z, dim=-1)", (
-        Edit(Span(3, 5, 3, 40), "torch.log_softmax(z, dim=-1)"),
-        Edit(Span(1, 1, 1, 1), "import torch\n"),
-    ))
     rules = [r.id for r in all_rules()]
-    return ScanResult(3, (
-        Finding(rules[0], "warning", "src/a b/modèle.py", Span(3, 5, 3, 40), "m1", fix=review),
-        Finding(rules[-1], "note", "src/c.py", Span(7, 9, 9, 2), "m2", suggestion="use logsumexp"),
-    ), (Problem("src/bad.py", "not valid Python 3: invalid syntax (line 1)"),))
+    return constructed(rules[0], rules[-1])
 
 
 def test_real_scan_validates_against_the_sarif_schema(validator, legacy):

@@ -3,18 +3,25 @@ source line with the span marked, the rewrite, and a closing summary."""
 from __future__ import annotations
 
 import io
-from collections import Counter
+import re
 
 from ..model import Finding, ScanResult
 from ..read import ReadError, read_source
+from .summary import Summary, plural, summarise
 
 _STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
+# The line breaks Python's tokenizer counts; str.splitlines also breaks at form feeds
+# and other separators, which would shift every later line number.
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 
 
-def _source_lines(path: str, cache: dict) -> list[str]:
+def source_lines(path: str, cache: dict) -> list[str]:
+    """The lines of PATH as analysed (empty when it cannot be read again), cached."""
     if path not in cache:
         try:
-            cache[path] = read_source(path).text.splitlines() if path != "-" else []
+            lines = _LINE_BREAK.split(read_source(path).text) if path != "-" else []
+            # A final line break ends the last line; it does not start another.
+            cache[path] = lines[:-1] if lines and lines[-1] == "" else lines
         except (ReadError, OSError):
             cache[path] = []
     return cache[path]
@@ -42,7 +49,7 @@ def render(result: ScanResult, color: bool = False, sources: dict | None = None,
         console.print(
             f"[bold]{escape(head)}[/][{_STYLE.get(f.severity, '')}]{f.severity}[/]: {escape(f.message)} [dim]\\[{f.rule}][/]"
         )
-        for line in _excerpt(f, _source_lines(f.path, cache)):
+        for line in _excerpt(f, source_lines(f.path, cache)):
             console.print(escape(line), style="dim" if "^" not in line else "red")
         if f.fix is not None:
             console.print(f"       [green]fix ({f.fix.kind}):[/] {escape(f.fix.replacement)}")
@@ -55,19 +62,38 @@ def render(result: ScanResult, color: bool = False, sources: dict | None = None,
     return out.getvalue()
 
 
+def _table(title: str | None, rows, indent: str = "  ") -> list[str]:
+    if not rows:
+        return []
+    width = max(len(key) for key, _ in rows)
+    lines = [f"{indent}{key:<{width}}  {n}" for key, n in rows]
+    return ([f"  {title}:"] if title else []) + lines
+
+
+def _headline(s: Summary) -> str:
+    head = f"{plural(s.findings, 'finding')} in {plural(s.files, 'file')} scanned"
+    if s.findings:
+        head += f" ({s.auto_fixable} fixable with `nanproof fix`"
+        if s.review_fixable:
+            head += f", {s.review_fixable} more with `--include-review`"
+        head += ")"
+    if s.problems:
+        head += f"; {plural(s.problems, 'file')} could not be analysed"
+    return head
+
+
 def _summary(result: ScanResult) -> str:
-    per_rule = Counter(f.rule for f in result.findings)
-    fixable = sum(1 for f in result.findings if f.fix is not None and f.fix.kind == "auto")
-    lines = []
-    if per_rule:
-        width = max(len(r) for r in per_rule)
-        for rule, n in sorted(per_rule.items(), key=lambda kv: (-kv[1], kv[0])):
-            lines.append(f"  {rule:<{width}}  {n}")
-    files = f"{result.files} file{'s' if result.files != 1 else ''} scanned"
-    total = len(result.findings)
-    head = f"{total} finding{'s' if total != 1 else ''} in {files}"
-    if total:
-        head += f" ({fixable} fixable with `nanproof fix`)"
-    if result.problems:
-        head += f"; {len(result.problems)} file{'s' if len(result.problems) != 1 else ''} could not be analysed"
-    return "\n".join([head + (":" if lines else "."), *lines])
+    """One or two lines when the findings are in one file (a pre-commit run); for a
+    scan with findings spread over files, also per folder and the files with most."""
+    s = summarise(result)
+    if s.files_with_findings <= 1:
+        lines = _table(None, s.per_rule)
+    else:
+        lines = _table("by rule", s.per_rule, "    ")
+        if len(s.per_folder) > 1:
+            lines += _table("by folder", s.per_folder, "    ")
+        lines += _table("files with most findings", s.top_files, "    ")
+        rest = s.files_with_findings - len(s.top_files)
+        if rest > 0:
+            lines.append(f"    ... and {plural(rest, 'more file')}")
+    return "\n".join([_headline(s) + (":" if lines else "."), *lines])
