@@ -10,7 +10,7 @@ from html.parser import HTMLParser
 import pytest
 from reportutil import constructed, scan_legacy
 
-from nanproof.model import Finding, ScanResult, Span
+from nanproof.model import Edit, Finding, Fix, ScanResult, Span
 from nanproof.report import html as html_report
 
 # HTML Living Standard, "void elements": they have no end tag.
@@ -111,7 +111,7 @@ def test_header_counts_and_fixable(legacy):
     auto = sum(1 for f in legacy.findings if f.fix is not None and f.fix.kind == "auto")
     share = round(100 * auto / len(legacy.findings))
     assert page.tiles["files scanned"] == str(legacy.files)
-    assert page.tiles[f"auto-fixable ({share}% of findings)"] == str(auto)
+    assert page.tiles[f"auto-fixable \u00b7 {share}%"] == str(auto)
     assert page.tiles["files not analysed"] == "1" and "legacy/broken.py" in page.text
 
 
@@ -123,6 +123,20 @@ def test_charts_have_one_bar_per_rule_and_per_folder(legacy):
     rules = {f.rule for f in legacy.findings}
     folders = {f.path.split("/")[1] for f in legacy.findings}  # legacy/<folder>/...
     assert len(rects) == len(rules) + len(folders)
+
+
+def test_long_tails_are_summed_below_the_chart_not_drawn_as_a_bar():
+    # 15 folders with 15, 14, ..., 1 findings: 12 bars, then 3 folders with 3+2+1.
+    findings = tuple(
+        Finding("softmax-unshifted", "error", f"repo/f{k:02d}/m{i}.py", Span(1, 1, 1, 2), "m")
+        for k in range(1, 16) for i in range(16 - k)
+    )
+    page = Page(html_report.render(ScanResult(120, findings, ())))
+    bars = [a for tag, a in page.tags if tag == "rect"]
+    assert len(bars) == 1 + html_report.CHART_ROWS  # one rule, twelve folders
+    assert "and 3 other folders with 6 findings" in page.text
+    # Bar labels are relative to the scanned root, which the page title names.
+    assert "f01/" in page.texts and "repo/f01/" not in page.texts
 
 
 def test_text_is_escaped():
@@ -140,6 +154,15 @@ def test_review_fix_and_suggestion_are_shown_with_their_kind():
     assert "suggestion" in page.text and "use logsumexp" in page.text
     # The sources do not exist here: the report says so instead of failing.
     assert "(source not available)" in page.text
+
+
+def test_rewrite_away_from_the_flagged_line_names_its_line():
+    edit = Edit(Span(13, 9, 13, 23), "np.exp(s - s.max())")
+    away = Finding("softmax-unshifted", "error", "m.py", Span(14, 9, 14, 30), "m", fix=Fix("auto", "e = np.exp(s - s.max())", (edit,)))
+    here = Finding("softmax-unshifted", "error", "m.py", Span(20, 9, 20, 30), "m", fix=Fix("auto", "x", (Edit(Span(20, 9, 20, 12), "y"),)))
+    page = Page(html_report.render(ScanResult(1, (away, here), ())))
+    labels = [t for t in page.texts if t.startswith("proposed rewrite")]
+    assert labels == ["proposed rewrite (auto) on line 13", "proposed rewrite (auto)"]
 
 
 def test_empty_scan_renders():

@@ -166,3 +166,11 @@ def test_absolute_path_outside_the_run_folder_is_a_file_uri(tmp_path, monkeypatc
     res = json.loads(sarif.render(found))["runs"][0]["results"][0]
     art = res["locations"][0]["physicalLocation"]["artifactLocation"]
     assert art["uri"] == outside.as_uri() and "uriBaseId" not in art
+
+
+def test_standard_input_is_not_resolved_against_the_run_folder(validator):
+    found = ScanResult(1, (Finding(all_rules()[0].id, "error", "-", Span(1, 1, 1, 2), "m"),), ())
+    doc = json.loads(sarif.render(found))
+    assert _errors(validator, doc) == []
+    art = doc["runs"][0]["results"][0]["locations"][0]["physicalLocation"]["artifactLocation"]
+    assert "uriBaseId" not in art and art["description"]["text"] == "standard input"

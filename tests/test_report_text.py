@@ -62,6 +62,14 @@ def test_top_files_lists_five_and_counts_the_rest():
     assert lines[start + 6] == "    ... and 2 more files"
 
 
+def test_many_folders_are_cut_at_ten():
+    findings = tuple(_finding(f"repo/f{k:02d}/m{i}.py") for k in range(13) for i in range(13 - k))
+    lines = _summary_lines(ScanResult(100, findings, ()))
+    start = lines.index("  by folder:")
+    assert lines[start + 1].split() == ["repo/f00/", "13"]
+    assert lines[start + text_report.FOLDERS + 1] == "    ... and 3 more folders"
+
+
 def test_review_fixes_and_unfixable_findings_are_counted_apart():
     findings = (_finding("a/x.py"), _finding("a/y.py", fix="review"), _finding("b/z.py", fix=None))
     s = summarise(ScanResult(3, findings, ()))

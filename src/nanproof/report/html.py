@@ -8,7 +8,7 @@ from html import escape
 
 from .. import __version__
 from ..model import Finding, ScanResult
-from .summary import Summary, plural, summarise
+from .summary import Summary, fold, plural, summarise
 from .text import source_lines
 
 CONTEXT = 2  # source lines shown above and below a finding
@@ -26,13 +26,13 @@ header{background:var(--ink);color:#f6f4ef;padding:28px 40px 24px}
 header h1{margin:0;font-size:22px;font-weight:600;letter-spacing:.01em}
 header .meta{margin:4px 0 18px;color:#b9bdc8;font-size:13px}
 .tiles{display:flex;flex-wrap:wrap;gap:12px}
-.tile{background:#2c3342;border-radius:6px;padding:10px 16px;min-width:140px}
+.tile{background:#2c3342;border-radius:6px;padding:10px 16px;min-width:120px}
 .tile b{display:block;font-size:26px;font-weight:600;line-height:1.2}
 .tile span{font-size:12px;color:#b9bdc8;text-transform:uppercase;letter-spacing:.06em}
 .tile.error b{color:#ff9c8a}.tile.fix b{color:#8fd6c9}
 main{padding:8px 40px 40px;max-width:1280px}
 h2{font-size:17px;margin:30px 0 10px;border-bottom:2px solid var(--line);padding-bottom:4px}
-.charts{display:flex;flex-wrap:wrap;gap:24px}
+.charts{display:flex;flex-wrap:wrap;gap:24px;align-items:flex-start}
 .chart{background:var(--card);border:1px solid var(--line);border-radius:6px;padding:12px 16px}
 .chart h3{margin:0 0 6px;font-size:14px;color:var(--muted);font-weight:600}
 table{border-collapse:collapse;background:var(--card);border:1px solid var(--line)}
@@ -69,12 +69,12 @@ def _tile(value, label: str, cls: str = "") -> str:
 def _header(s: Summary, root: str) -> str:
     when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     sev = dict(s.per_severity)
-    share = f"{round(100 * s.auto_fixable / s.findings)}% of findings" if s.findings else "nothing to fix"
+    share = f" \u00b7 {round(100 * s.auto_fixable / s.findings)}%" if s.findings else ""
     tiles = [
         _tile(s.files, "files scanned"),
         _tile(s.findings, f"findings in {plural(s.files_with_findings, 'file')}"),
         _tile(sev.get("error", 0), "errors", "error"),
-        _tile(s.auto_fixable, f"auto-fixable ({share})", "fix"),
+        _tile(s.auto_fixable, f"auto-fixable{share}", "fix"),
         _tile(s.review_fixable, "fixes to review"),
         _tile(s.problems, "files not analysed", "error" if s.problems else ""),
     ]
@@ -85,35 +85,37 @@ def _header(s: Summary, root: str) -> str:
     )
 
 
-def _folded(rows: tuple[tuple[str, int], ...], noun: str) -> list[tuple[str, int]]:
-    if len(rows) <= CHART_ROWS:
-        return list(rows)
-    rest = rows[CHART_ROWS - 1 :]
-    return [*rows[: CHART_ROWS - 1], (f"{len(rest)} other {noun}s", sum(n for _, n in rest))]
+def _fit(label: str, chars: int) -> str:
+    """LABEL cut in the middle to CHARS characters: both ends of a path say the most."""
+    if len(label) <= chars:
+        return label
+    head = (chars - 1) // 2
+    return label[:head] + "\u2026" + label[len(label) - (chars - 1 - head) :]
 
 
-def _bar_chart(title: str, rows: list[tuple[str, int]], colors: dict[str, str], legend: str = "") -> str:
-    """A horizontal bar chart: label, bar scaled to the largest count, the count."""
+def _bar_chart(title: str, rows, colors: dict[str, str], noun: str, legend: str = "") -> str:
+    """A horizontal bar chart: label, bar scaled to the largest count, the count; rows
+    past CHART_ROWS are summed in a line below rather than drawn as one long bar."""
     if not rows:
         return ""
+    rows, rest, rest_n = fold(rows, CHART_ROWS)
     label_w = min(260, 12 + 7 * max(len(k) for k, _ in rows))
+    fits = (label_w - 12) // 7  # characters of a 12px monospace label that fit
     bar_w, row_h = 240, 24
     top = max(n for _, n in rows)
-    fits = (label_w - 12) // 7  # characters of a 12px monospace label that fit
-    height = row_h * len(rows) + 6
-    width = label_w + bar_w + 50
-    parts = [f'<svg width="{width}" height="{height}" role="img" aria-label="{escape(title)}">']
+    parts = [f'<svg width="{label_w + bar_w + 50}" height="{row_h * len(rows) + 6}" role="img" aria-label="{escape(title)}">']
     for i, (key, n) in enumerate(rows):
         y = i * row_h + 3
         w = max(2, round(bar_w * n / top))
-        shown = key if len(key) <= fits else "\u2026" + key[-(fits - 1) :]
         parts.append(
             f"<g><title>{escape(key)}: {n}</title>"
-            f'<text x="{label_w - 8}" y="{y + 16}" text-anchor="end" font-size="12" font-family="ui-monospace,Menlo,Consolas,monospace" fill="#1f2430">{escape(shown)}</text>'
+            f'<text x="{label_w - 8}" y="{y + 16}" text-anchor="end" font-size="12" font-family="ui-monospace,Menlo,Consolas,monospace" fill="#1f2430">{escape(_fit(key, fits))}</text>'
             f'<rect x="{label_w}" y="{y + 3}" width="{w}" height="{row_h - 8}" rx="3" fill="{colors.get(key, "#2f6f6a")}"/>'
             f'<text x="{label_w + w + 6}" y="{y + 16}" font-size="12" fill="#5d6475">{n}</text></g>'
         )
     parts.append("</svg>")
+    if rest:
+        parts.append(f'<p class="legend">and {plural(rest, "other " + noun)} with {plural(rest_n, "finding")}</p>')
     return f'<div class="chart"><h3>{escape(title)}</h3>{legend}{"".join(parts)}</div>'
 
 
@@ -124,8 +126,10 @@ def _charts(result: ScanResult, s: Summary) -> str:
     colors = {f.rule: _PALETTE.get(f.severity, "#2f6f6a") for f in result.findings}
     shown = [sev for sev in _PALETTE if sev in dict(s.per_severity)]
     legend = '<p class="legend">' + "".join(f'<i style="background:{_PALETTE[sev]}"></i>{sev}' for sev in shown) + "</p>"
-    by_rule = _bar_chart("Findings per rule", _folded(s.per_rule, "rule"), colors, legend)
-    by_folder = _bar_chart("Findings per top-level folder", _folded(s.per_folder, "folder"), {})
+    by_rule = _bar_chart("Findings per rule", s.per_rule, colors, "rule", legend)
+    # Folder labels below the common root, which the page title already names.
+    folders = [(k[len(s.root) :] if s.root and k.startswith(s.root) else k, n) for k, n in s.per_folder]
+    by_folder = _bar_chart("Findings per top-level folder", [(k or "(top level)", n) for k, n in folders], {}, "folder")
     return f'<h2>Where the findings are</h2><div class="charts">{by_rule}{by_folder}</div>'
 
 
@@ -173,6 +177,9 @@ def _rewrite(f: Finding) -> str:
             "review": "applied by <code>nanproof fix --include-review</code>; may change results, check it",
         }[f.fix.kind]
         label, code = f"proposed rewrite ({escape(f.fix.kind)})", f.fix.replacement
+        # The rewrite may edit where the value was built, not the flagged line.
+        if not any(f.span.contains(e.span) for e in f.fix.edits):
+            label += " on line " + ", ".join(str(n) for n in sorted({e.span.line for e in f.fix.edits}))
     elif f.suggestion:
         label, code, hint = "suggestion", f.suggestion, "not applied automatically"
     else:

@@ -25,14 +25,16 @@ _FIX_WORDS = {
 def _artifact(path: str, cwd: Path) -> dict:
     """A relative URI with forward slashes where the path lies below ``cwd``; an
     absolute ``file:`` URI otherwise."""
+    if path == "-":
+        # No file to point at; the description says where the text came from.
+        return {"uri": "-", "description": {"text": "standard input"}}
     p = Path(path)
     if p.is_absolute():
         try:
             p = p.relative_to(cwd)
         except ValueError:
             return {"uri": p.as_uri()}
-    rel = p.as_posix()
-    # Path("./x") already drops the "./"; a bare "-" (standard input) stays as it is.
+    rel = p.as_posix()  # Path("./x") already drops the "./"
     return {"uri": quote(rel, safe="/-._~"), "uriBaseId": BASE_ID}
 
 

@@ -92,5 +92,11 @@ def summarise(result: ScanResult, top: int = TOP_FILES) -> Summary:
     )
 
 
+def fold(rows, keep: int) -> tuple[list[tuple[str, int]], int, int]:
+    """The first KEEP rows, and how many rows and findings are left over."""
+    rest = rows[keep:]
+    return list(rows[:keep]), len(rest), sum(n for _, n in rest)
+
+
 def plural(n: int, word: str) -> str:
     return f"{n} {word}{'' if n == 1 else 's'}"

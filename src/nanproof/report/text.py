@@ -7,9 +7,10 @@ import re
 
 from ..model import Finding, ScanResult
 from ..read import ReadError, read_source
-from .summary import Summary, plural, summarise
+from .summary import Summary, fold, plural, summarise
 
 _STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
+FOLDERS = 10  # folder lines in the summary; the rest are counted in one line
 # The line breaks Python's tokenizer counts; str.splitlines also breaks at form feeds
 # and other separators, which would shift every later line number.
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
@@ -70,6 +71,10 @@ def _table(title: str | None, rows, indent: str = "  ") -> list[str]:
     return ([f"  {title}:"] if title else []) + lines
 
 
+def _more(rest: int, noun: str) -> list[str]:
+    return [f"    ... and {plural(rest, 'more ' + noun)}"] if rest > 0 else []
+
+
 def _headline(s: Summary) -> str:
     head = f"{plural(s.findings, 'finding')} in {plural(s.files, 'file')} scanned"
     if s.findings:
@@ -91,9 +96,8 @@ def _summary(result: ScanResult) -> str:
     else:
         lines = _table("by rule", s.per_rule, "    ")
         if len(s.per_folder) > 1:
-            lines += _table("by folder", s.per_folder, "    ")
+            folders, rest, _ = fold(s.per_folder, FOLDERS)
+            lines += _table("by folder", folders, "    ") + _more(rest, "folder")
         lines += _table("files with most findings", s.top_files, "    ")
-        rest = s.files_with_findings - len(s.top_files)
-        if rest > 0:
-            lines.append(f"    ... and {plural(rest, 'more file')}")
+        lines += _more(s.files_with_findings - len(s.top_files), "file")
     return "\n".join([_headline(s) + (":" if lines else "."), *lines])
