@@ -700,3 +700,60 @@ def _method_of_self(ref: Ref, name: str):
         if isinstance(item, (ast.FunctionDef, ast.AsyncFunctionDef)) and item.name == name:
             return (item, fscope.parent)
     return None
+
+
+# ---------------------------------------------------------------------------------------
+# Epsilon guards on probabilities: log(p + eps), log(clip(p, eps, 1 - eps))
+# ---------------------------------------------------------------------------------------
+# A guard constant is small: epsilons in use run from about 1e-15 to 1e-6 (common
+# practice); a larger added constant is smoothing or a shift, not a guard.
+EPS_MAX = 1e-3
+_EPS_WORDS = {"eps", "epsilon", "tiny", "eps_", "_eps"}
+
+
+def is_epsilon(ref: Ref) -> bool:
+    """A small positive guard value: ``1e-8``, a name bound to one, ``eps`` / ``self.eps``
+    / ``EPSILON``, ``np.finfo(t).eps`` / ``.tiny``, Keras ``K.epsilon()``."""
+    ref = strip(ref)
+    node = ref.node
+    c = _const(node)
+    if c is not None:
+        return 0 < c <= EPS_MAX
+    if isinstance(node, ast.Call) and not node.args:
+        node = node.func  # K.epsilon(), keras.config.epsilon()
+    word = node.id if isinstance(node, ast.Name) else node.attr if isinstance(node, ast.Attribute) else ""
+    parts = word.lower().strip("_").split("_")
+    return bool(word) and any(p.rstrip("0123456789") in _EPS_WORDS for p in parts)
+
+
+def _guard_inner(ref: Ref) -> Ref | None:
+    node = ref.node
+    if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Add):
+        for a, b in ((node.left, node.right), (node.right, node.left)):
+            if is_epsilon(ref.child(b)) and not is_epsilon(ref.child(a)):
+                return ref.child(a)
+        return None
+    oc = op_of(ref)
+    if oc is None or oc.subject is None:
+        return None
+    if oc.op == "clip" and not (isinstance(node.func, ast.Attribute) and node.func.attr == "clamp_max"):
+        lo = oc.arg(0, "min", "a_min", "clip_value_min", "min_value")
+        return ref.child(oc.subject) if lo is not None and is_epsilon(ref.child(lo)) else None
+    if oc.op in ("maximum", "max") and len(node.args) == 2 and not node.keywords and not oc.is_method:
+        a, b = node.args
+        if is_epsilon(ref.child(b)):
+            return ref.child(a)
+        return ref.child(b) if is_epsilon(ref.child(a)) else None
+    return None
+
+
+def unguard(ref: Ref) -> Ref:
+    """The value under epsilon guards (``p + eps``, ``clip(p, eps, hi)``,
+    ``p.clamp(min=eps)``, ``maximum(p, eps)``), stripped; ``strip(ref)`` when unguarded."""
+    for _ in range(4):
+        ref = strip(ref)
+        inner = _guard_inner(ref)
+        if inner is None:
+            return ref
+        ref = inner
+    return strip(ref)
