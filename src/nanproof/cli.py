@@ -37,20 +37,21 @@ def _config(paths, config_file, **cli):
         raise click.UsageError(str(e)) from None
 
 
-def _color(output: str | None) -> bool:
-    return output is None and sys.stdout.isatty() and "NO_COLOR" not in os.environ
+def _color(output: str | None, stream=None) -> bool:
+    stream = stream or sys.stdout
+    return output is None and stream.isatty() and "NO_COLOR" not in os.environ
 
 
-def _render(result, fmt: str, output: str | None) -> None:
+def _render(result, fmt: str, output: str | None, to_stderr: bool = False, prefix: str = "", **kw) -> None:
     from importlib import import_module
 
     report = import_module(f"nanproof.report.{fmt}")
-    text = report.render(result, color=_color(output))
+    text = prefix + report.render(result, color=_color(output, sys.stderr if to_stderr else None), **kw)
     if output:
         with open(output, "w", encoding="utf-8") as fh:
             fh.write(text)
     else:
-        click.echo(text, nl=False)
+        click.echo(text, nl=False, err=to_stderr)
 
 
 def _progress():
@@ -75,6 +76,23 @@ def cli() -> None:
     """Find numerically unstable softmax, log-sum-exp, cross-entropy and sigmoid code."""
 
 
+def _analysed(paths, changed_since, run):
+    """``run(progress)`` with a progress bar on a terminal; a REF that git does not know
+    fails before any analysis, even where nothing would be found."""
+    update, close = _progress()
+    try:
+        if changed_since:
+            from .gitdiff import check_revision
+
+            check_revision(paths, changed_since)
+        return run(update)
+    except ConfigError as e:  # gitdiff.GitError: not a git repository, unknown REF
+        raise click.UsageError(str(e)) from None
+    finally:
+        if close:
+            close()
+
+
 @cli.command()
 @_common
 def scan(paths, fmt, output, rules, skip, changed_since, jobs, config_file):
@@ -84,20 +102,51 @@ def scan(paths, fmt, output, rules, skip, changed_since, jobs, config_file):
     paths = paths or (".",)
     _missing_paths(paths)
     config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs)
-    update, close = _progress()
-    try:
-        if changed_since:  # fail before the analysis, and even where nothing is found
-            from .gitdiff import check_revision
-
-            check_revision(paths, changed_since)
-        result = run_scan(list(paths), config, progress=update)
-    except ConfigError as e:  # gitdiff.GitError: not a git repository, unknown REF
-        raise click.UsageError(str(e)) from None
-    finally:
-        if close:
-            close()
+    result = _analysed(paths, changed_since, lambda update: run_scan(list(paths), config, progress=update))
     _render(result, fmt, output)
     sys.exit(result.exit_code)
+
+
+@cli.command()
+@_common
+@click.option("--include-review", is_flag=True, help="Also apply the `review` rewrites (imports, another API, an inferred axis).")
+@click.option("--diff", "diff_only", is_flag=True, help="Print the rewrites as a unified diff on standard output and write nothing.")
+def fix(paths, fmt, output, rules, skip, changed_since, jobs, config_file, include_review, diff_only):
+    """Apply the automatic rewrites in place (or print them as a diff), then report what
+    is left. `-` fixes standard input and prints the fixed source."""
+    from .fix import fix_bytes, fix_paths
+
+    paths = paths or (".",)
+    _missing_paths(paths)
+    if "-" in paths and (len(paths) > 1 or changed_since):
+        raise click.UsageError("fix reads standard input (`-`) alone, without other paths or --changed-since")
+    config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs, include_review=include_review)
+    data = click.get_binary_stream("stdin").read() if paths == ("-",) else None
+    if data is not None:
+        result = fix_bytes(data, config, include_review)
+    else:
+        result = _analysed(paths, changed_since, lambda update: fix_paths(list(paths), config, include_review, diff_only, update))
+    _show_fix(result, fmt, output, diff_only, data)
+    sys.exit(result.exit_code)
+
+
+def _show_fix(result, fmt: str, output: str | None, diff_only: bool, stdin: bytes | None) -> None:
+    """Standard output gets the patch (``--diff``), the fixed source (``-``) or the
+    report; whatever else there is goes to standard error, so ``fix --diff > x.patch``
+    and ``fix - < a.py > b.py`` hold nothing but the patch or the source."""
+    from .report.diff import summary, unified
+
+    out = click.get_binary_stream("stdout")
+    notes = summary(result)
+    if diff_only:
+        out.write(unified(result))
+    elif stdin is not None:
+        out.write(result.changes[0].after if result.changes else stdin)
+    if diff_only or stdin is not None or fmt != "text" or output:
+        click.echo(notes, nl=False, err=True)
+        _render(result.left, fmt, output, to_stderr=diff_only or stdin is not None, sources={c.path: list(c.lines) for c in result.changes})
+    else:
+        _render(result.left, fmt, output, prefix=notes + "\n" if notes else "")
 
 
 @cli.command()
