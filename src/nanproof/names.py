@@ -30,6 +30,7 @@ _FRAMEWORKS = {
     "scipy.misc": "scipy",
     "scipy": "scipy",
     "math": "math",
+    "statistics": "math",  # the standard library's statistics of lists: scalars, like math
     "builtins": "builtins",
 }
 
@@ -63,7 +64,7 @@ _OPS: dict[str, tuple[str, ...]] = {
     "log1p": ("numpy.log1p", "math.log1p", "torch.log1p", "tensorflow.log1p"),
     "expm1": ("numpy.expm1", "math.expm1", "torch.expm1", "tensorflow.expm1"),
     "sum": ("numpy.sum", "numpy.nansum", "torch.sum", "torch.nansum", "tensorflow.reduce_sum", "builtins.sum", "math.fsum"),
-    "mean": ("numpy.mean", "numpy.average", "numpy.nanmean", "torch.mean", "tensorflow.reduce_mean"),
+    "mean": ("numpy.mean", "numpy.average", "numpy.nanmean", "torch.mean", "tensorflow.reduce_mean", "statistics.mean", "statistics.fmean"),
     "max": ("numpy.max", "numpy.amax", "numpy.nanmax", "torch.max", "torch.amax", "tensorflow.reduce_max", "builtins.max"),
     "min": ("numpy.min", "numpy.amin", "numpy.nanmin", "torch.min", "torch.amin", "tensorflow.reduce_min", "builtins.min"),
     "prod": ("numpy.prod", "torch.prod", "tensorflow.reduce_prod", "math.prod"),
@@ -94,9 +95,14 @@ _OPS: dict[str, tuple[str, ...]] = {
     "asarray": ("numpy.asarray", "numpy.array", "torch.as_tensor", "torch.tensor", "tensorflow.convert_to_tensor", "tensorflow.constant"),
     "expand_dims": ("numpy.expand_dims", "torch.unsqueeze", "tensorflow.expand_dims"),
     "norm": ("numpy.norm", "torch.norm", "torch.vector_norm", "tensorflow.norm"),
-    "var": ("numpy.var", "torch.var", "tensorflow.reduce_variance"),
+    "var": ("numpy.var", "numpy.nanvar", "torch.var", "tensorflow.reduce_variance", "statistics.pvariance", "statistics.variance"),
     "xlogy": ("scipy.special.xlogy", "torch.xlogy", "scipy.special.entr", "scipy.special.rel_entr"),
     "hypot": ("numpy.hypot", "math.hypot", "torch.hypot"),
+    # statistics family: entropy in bits / digits, squares written as powers, nan cleanup
+    "log2": ("numpy.log2", "math.log2", "torch.log2"),
+    "log10": ("numpy.log10", "math.log10", "torch.log10"),
+    "power": ("numpy.power", "numpy.float_power", "torch.pow", "torch.float_power", "tensorflow.pow", "math.pow", "builtins.pow"),
+    "nan_to_num": ("numpy.nan_to_num", "torch.nan_to_num"),
 }
 OP_BY_NAME: dict[str, str] = {q: op for op, names in _OPS.items() for q in names}
 
@@ -112,8 +118,9 @@ METHODS = {
     "astype": "identity", "type": "identity", "to": "identity", "contiguous": "identity",
     "clone": "identity", "cpu": "identity", "cuda": "identity", "numpy": "identity", "copy": "identity",
     "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
+    "log2": "log2", "log10": "log10", "pow": "power", "nan_to_num": "nan_to_num",
 }
-NO_ARG_METHODS = {"exp", "log", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",
+NO_ARG_METHODS = {"exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",
                   "detach", "float", "double", "half", "contiguous", "clone", "cpu", "numpy"}
 
 
