@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import ast
+from dataclasses import replace
 
 from .. import facts
 from ..analyse import Context, Hit
@@ -337,7 +338,7 @@ def _nll_log(ctx: Context, ref: Ref):
     arg = log_argument(ctx, log_ref.node) if log_ref.scope is ctx.scope else None
     if arg is None:
         return None
-    o = facts.origin(arg)
+    o = facts.origin(facts.unguard(arg))  # also log(p + eps), log(clip(p, eps, 1 - eps))
     return (log_ref, o) if o is not None and o.kind == "softmax" else None
 
 
@@ -345,10 +346,18 @@ _CE = "negative log-likelihood of softmax probabilities"
 
 
 def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
-    fix = _log_of_softmax_fix(ctx, o, facts.strip(log_argument(ctx, log_ref.node)), log_ref.node)
+    arg = log_argument(ctx, log_ref.node)
+    src = facts.unguard(arg)
+    guarded = src.node is not facts.strip(arg).node
+    # A log of gathered entries (p[range(n), y]) has no whole-log rewrite; dropping an
+    # epsilon guard changes the values, so that rewrite needs a review.
+    fix = _log_of_softmax_fix(ctx, o, src, log_ref.node) if facts.origin(src) is not None else None
+    if fix is not None and guarded:
+        fix = replace(fix, kind="review")
+    eps = "; an epsilon guard only caps it near -log(eps) and stalls the gradient" if guarded else ""
     msg = (
         f"{_CE}{_lines(ctx, log_ref.node)}: log of {_origin_words(o)} is -inf once a probability underflows "
-        f"when a logit trails the largest by {UNDERFLOW}, giving an inf loss and nan gradients; compute the loss on logits"
+        f"when a logit trails the largest by {UNDERFLOW}, giving an inf loss and nan gradients{eps}; compute the loss on logits"
     )
     return Hit(ctx.node, msg, fix=fix, suggestion=suggestion, covers=(log_ref.node,))
 
@@ -361,14 +370,14 @@ def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
     fix="auto",
     nodes=(ast.Call, ast.BinOp, ast.Subscript),
     triggers=(r"log\s*\(", r"nll_loss\s*\(", r"NLLLoss\s*\("),
-    overrides=("log-of-softmax",),
+    overrides=("log-of-softmax", "log-epsilon-guard"),
 )
 def cross_entropy_from_probs(ctx: Context):
     node = ctx.node
     if isinstance(node, ast.Call):
         arg = log_argument(ctx)
         if arg is not None:  # log(p[range(n), y]) with p a softmax
-            p = gathered(arg)
+            p = gathered(facts.unguard(arg))
             o = facts.origin(p) if p is not None else None
             if o is not None and o.kind == "softmax":
                 yield _ce_hit(ctx, ctx.ref(), o, "cross-entropy on the logits (e.g. F.cross_entropy(logits, y)), or gather from log_softmax")
@@ -408,7 +417,7 @@ def _is_nll(ctx: Context, call: ast.Call) -> bool:
 def _is_same_probs(ctx: Context, other: ast.AST, log_ref: Ref) -> bool:
     """``p * log(p)`` is an entropy term, not a likelihood."""
     arg = log_argument(ctx, log_ref.node)
-    return arg is not None and facts.same(ctx.ref(other), arg)
+    return arg is not None and facts.same(ctx.ref(other), facts.unguard(arg))
 
 
 # ---------------------------------------------------------------------------------------
