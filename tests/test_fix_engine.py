@@ -13,49 +13,12 @@ import textwrap
 
 import pytest
 
+from fixdoubles import frob_call, rewriting, rules  # noqa: F401  (rules is a fixture)
 from nanproof import fix as fixmod
-from nanproof import registry
 from nanproof.analyse import Hit
 from nanproof.config import Config
 from nanproof.fix import MAX_ROUNDS, fix_bytes, fix_paths
 from nanproof.model import Edit, Fix, Span
-from nanproof.registry import Rule
-from nanproof.rewrite import import_edit
-
-
-def _frob_call(node) -> bool:
-    return isinstance(node.func, ast.Name) and node.func.id == "frob" and len(node.args) == 1
-
-
-def _rule(rule_id: str, check, nodes=(ast.Call,), kind="auto", trigger=r"frob\s*\(") -> Rule:
-    return Rule(rule_id, "elementary", "warning", "test double", kind, nodes, check, (), (trigger,))
-
-
-def _rewriting(rewrite, kind="auto", with_import=None):
-    """A check flagging ``frob(ARG)`` and replacing the call by ``rewrite(ARG text)``."""
-
-    def check(ctx):
-        if _frob_call(ctx.node):
-            more = [import_edit(ctx.analysis.tree, with_import)] if with_import else []
-            text = rewrite(ctx.text(ctx.node.args[0]))
-            yield Hit(ctx.node, "frob is unstable", ctx.fix(kind, [ctx.edit(ctx.node, text), *more]))
-
-    return check
-
-
-@pytest.fixture
-def rules(monkeypatch):
-    """Register test-double rules for one test; the registry is restored afterwards.
-    Returns a function (rule_id, check, ...) -> a Config that runs only the doubles."""
-    registry.known_ids()  # load the real rules first, so the doubles are only added
-    ids = set()
-
-    def add(rule_id, check, **kw) -> Config:
-        monkeypatch.setitem(registry._REGISTRY, rule_id, _rule(rule_id, check, **kw))
-        ids.add(rule_id)
-        return Config(rules=frozenset(ids), jobs=1)
-
-    return add
 
 
 def _file(tmp_path, text: str | bytes, name="m.py"):
@@ -85,7 +48,7 @@ def f(a, b):
 
 
 def test_comments_blank_lines_and_parenthesised_continuations_survive(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, FORMATTED)
     result = fix_paths([str(path)], config)
     assert path.read_bytes() == FORMATTED.replace(b"frob(a)", b"unfrob(a)", 1)
@@ -120,14 +83,14 @@ PRESERVED = {
 
 @pytest.mark.parametrize("source, expected", PRESERVED.values(), ids=PRESERVED.keys())
 def test_encoding_newlines_and_layout_survive_byte_for_byte(tmp_path, rules, source, expected):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, source)
     result = fix_paths([str(path)], config)
     assert path.read_bytes() == expected and result.exit_code == 0
 
 
 def test_parentheses_around_the_rewritten_node_stay(tmp_path, rules):
-    config = rules("frob-sum", _rewriting(lambda a: f"{a} + 1"))
+    config = rules("frob-sum", rewriting(lambda a: f"{a} + 1"))
     path = _file(tmp_path, b"y = 2 * ( frob(x) )\n")
     fix_paths([str(path)], config)
     assert path.read_bytes() == b"y = 2 * ( x + 1 )\n"
@@ -149,7 +112,7 @@ def _its_line(ctx):
 
 def _editing(edit_of):
     def check(ctx):
-        if _frob_call(ctx.node):
+        if frob_call(ctx.node):
             edit = edit_of(ctx)
             yield Hit(ctx.node, "frob", Fix("auto", edit.text, (edit,)))
 
@@ -158,14 +121,14 @@ def _editing(edit_of):
 
 REFUSALS = [
     # (test double, source, what the problem says)
-    (_rewriting(lambda a: f"unfrob({a}"), b"y = frob(x)\n", "is not an expression"),
+    (rewriting(lambda a: f"unfrob({a}"), b"y = frob(x)\n", "is not an expression"),
     # `await` parses anywhere but compiles only inside an async function.
-    (_rewriting(lambda a: f"await {a}"), b"y = frob(x)\n", "does not compile"),
+    (rewriting(lambda a: f"await {a}"), b"y = frob(x)\n", "does not compile"),
     # `2 * x + 1` would silently mean (2 * x) + 1.
-    (_rewriting(lambda a: f"{a} + 1"), b"y = 2 * frob(x)\n", "parentheses needed"),
-    (_rewriting(lambda a: f"frob(({a}))"), b"y = frob(x)\n", "frob-double still flags the rewritten code"),
+    (rewriting(lambda a: f"{a} + 1"), b"y = 2 * frob(x)\n", "parentheses needed"),
+    (rewriting(lambda a: f"frob(({a}))"), b"y = frob(x)\n", "frob-double still flags the rewritten code"),
     # Each round wraps the call again, so a new finding appears inside every rewrite.
-    (_rewriting(lambda a: f"wrap(frob({a}))"), b"y = frob(x)\n", f"did not settle after {MAX_ROUNDS} rounds"),
+    (rewriting(lambda a: f"wrap(frob({a}))"), b"y = frob(x)\n", f"did not settle after {MAX_ROUNDS} rounds"),
     (_editing(_half_span), b"y = frob(x) + 1\n", "does not cover exactly one expression"),
     (_editing(_its_line), b"v = [\n    frob(x),\n    2,\n]\n", "would change code outside the edited expressions"),
 ]
@@ -193,7 +156,7 @@ def test_unsafe_rewrite_leaves_the_file_untouched_with_a_problem(tmp_path, rules
 # Whole-line edits: imports inserted once, statements deleted
 # ---------------------------------------------------------------------------------------
 def test_identical_import_insertions_from_several_findings_are_applied_once(tmp_path, rules):
-    check = _rewriting(lambda a: f"unfrob({a})", kind="review", with_import="from frobkit import unfrob")
+    check = rewriting(lambda a: f"unfrob({a})", kind="review", with_import="from frobkit import unfrob")
     config = rules("frob-import", check, kind="review")
     source = b'"""Doc."""\nimport os\n\n\ndef f(a, b):\n    return frob(a) + frob(b)\n'
     path = _file(tmp_path, source)
@@ -205,7 +168,7 @@ def test_identical_import_insertions_from_several_findings_are_applied_once(tmp_
 
 
 def test_review_fixes_wait_for_include_review(tmp_path, rules):
-    config = rules("frob-review", _rewriting(lambda a: f"unfrob({a})", kind="review"), kind="review")
+    config = rules("frob-review", rewriting(lambda a: f"unfrob({a})", kind="review"), kind="review")
     path = _file(tmp_path, b"y = frob(x)\n")
     result = fix_paths([str(path)], config)
     assert path.read_bytes() == b"y = frob(x)\n"
@@ -232,7 +195,7 @@ def test_whole_statement_deletion_keeps_neighbouring_lines(tmp_path, rules):
 # Several findings: nested, overlapping, side by side
 # ---------------------------------------------------------------------------------------
 def test_nested_findings_are_fixed_over_rounds(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, b"y = frob(frob(frob(x)))  # three deep\nz = frob(1) + frob(2)\n")
     result = fix_paths([str(path)], config)
     assert path.read_bytes() == b"y = unfrob(unfrob(unfrob(x)))  # three deep\nz = unfrob(1) + unfrob(2)\n"
@@ -241,7 +204,7 @@ def test_nested_findings_are_fixed_over_rounds(tmp_path, rules):
 
 def test_overlapping_fixes_of_two_rules_both_end_up_applied(tmp_path, rules):
     # One rule rewrites the whole call, the other only its argument's call.
-    rules("frob-outer", _rewriting(lambda a: f"unfrob({a})"))
+    rules("frob-outer", rewriting(lambda a: f"unfrob({a})"))
 
     def inner(ctx):
         if isinstance(ctx.node.func, ast.Name) and ctx.node.func.id == "g" and ctx.node.args:
@@ -255,7 +218,7 @@ def test_overlapping_fixes_of_two_rules_both_end_up_applied(tmp_path, rules):
 
 
 def test_second_run_changes_no_byte(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, FORMATTED)
     fix_paths([str(path)], config)
     once = path.read_bytes()
@@ -267,7 +230,7 @@ def test_second_run_changes_no_byte(tmp_path, rules):
 # Writing: atomic, careful, never forced
 # ---------------------------------------------------------------------------------------
 def test_diff_only_writes_nothing(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, b"y = frob(x)\n")
     result = fix_paths([str(path)], config, diff_only=True)
     assert path.read_bytes() == b"y = frob(x)\n"
@@ -276,7 +239,7 @@ def test_diff_only_writes_nothing(tmp_path, rules):
 
 
 def test_read_only_file_is_reported_and_keeps_its_mode(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, b"y = frob(x)\n")
     path.chmod(0o444)
     result = fix_paths([str(path)], config)
@@ -286,7 +249,7 @@ def test_read_only_file_is_reported_and_keeps_its_mode(tmp_path, rules):
 
 
 def test_file_mode_is_kept(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, b"y = frob(x)\n")
     path.chmod(0o640)
     fix_paths([str(path)], config)
@@ -295,7 +258,7 @@ def test_file_mode_is_kept(tmp_path, rules):
 
 
 def test_symbolic_link_is_followed_not_replaced(tmp_path, rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     target = _file(tmp_path, b"y = frob(x)\n", name="real.py")
     link = tmp_path / "link.py"
     link.symlink_to(target)
@@ -304,7 +267,7 @@ def test_symbolic_link_is_followed_not_replaced(tmp_path, rules):
 
 
 def test_file_changed_during_the_run_is_not_overwritten(tmp_path, rules, monkeypatch):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     path = _file(tmp_path, b"y = frob(x)\n")
     real_settle = fixmod.settle
 
@@ -320,8 +283,8 @@ def test_file_changed_during_the_run_is_not_overwritten(tmp_path, rules, monkeyp
 
 
 def test_one_refused_file_does_not_stop_the_others(tmp_path, rules):
-    rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
-    config = rules("frob-sum", _rewriting(lambda a: f"{a} + 1"))
+    rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-sum", rewriting(lambda a: f"{a} + 1"))
     bad = _file(tmp_path, b"y = 2 * frob(x)\n", name="bad.py")
     good = _file(tmp_path, b"y = [frob(x)]\n", name="good.py")
     result = fix_paths([str(tmp_path)], Config(rules=frozenset({"frob-sum"}), jobs=1))
@@ -331,7 +294,7 @@ def test_one_refused_file_does_not_stop_the_others(tmp_path, rules):
 
 
 def test_standard_input_bytes_are_fixed_in_memory(rules):
-    config = rules("frob-good", _rewriting(lambda a: f"unfrob({a})"))
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     result = fix_bytes(b"y = frob(x)  # c\r\n", config)
     assert result.changes[0].after == b"y = unfrob(x)  # c\r\n" and result.exit_code == 0
 

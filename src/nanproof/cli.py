@@ -121,7 +121,7 @@ def fix(paths, fmt, output, rules, skip, changed_since, jobs, config_file, inclu
     if "-" in paths and (len(paths) > 1 or changed_since):
         raise click.UsageError("fix reads standard input (`-`) alone, without other paths or --changed-since")
     config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs, include_review=include_review)
-    data = click.get_binary_stream("stdin").read() if paths == ("-",) else None
+    data = sys.stdin.buffer.read() if paths == ("-",) else None
     if data is not None:
         result = fix_bytes(data, config, include_review)
     else:
@@ -136,12 +136,13 @@ def _show_fix(result, fmt: str, output: str | None, diff_only: bool, stdin: byte
     and ``fix - < a.py > b.py`` hold nothing but the patch or the source."""
     from .report.diff import summary, unified
 
-    out = click.get_binary_stream("stdout")
+    out = sys.stdout.buffer
     notes = summary(result)
     if diff_only:
         out.write(unified(result))
     elif stdin is not None:
         out.write(result.changes[0].after if result.changes else stdin)
+    out.flush()
     if diff_only or stdin is not None or fmt != "text" or output:
         click.echo(notes, nl=False, err=True)
         _render(result.left, fmt, output, to_stderr=diff_only or stdin is not None, sources={c.path: list(c.lines) for c in result.changes})

@@ -36,8 +36,11 @@ def unified(result: FixResult, context: int = 3) -> bytes:
             difflib.unified_diff, _lines(change.before), _lines(change.after), b"a/" + name, b"b/" + name, n=context
         )
         for i, row in enumerate(rows):
+            if i < 2 and any(c.isspace() for c in name.decode("utf-8", "replace")):
+                # A tab ends a name with spaces in it, as GNU diff writes the header
+                # (its date follows the tab); patch would stop at the first space.
+                row = row[:-1] + b"\t\n"
             out.append(row)
-            # Rows 0 and 1 are the file headers, which difflib ends itself.
             if i > 1 and not row.endswith(b"\n"):
                 out.append(b"\n" + _NO_EOL)
     return b"".join(out)
