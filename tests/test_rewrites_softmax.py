@@ -254,3 +254,20 @@ def test_vjp_keeps_relative_accuracy_for_tiny_probabilities():
     dot = sum(a * b for a, b in zip(sm, g))
     ref = [float(sm[i] * (g[i] - dot)) for i in range(3)]
     np.testing.assert_allclose(new(s, g), ref, rtol=1e-12)
+
+
+@pytest.mark.skipif(torch is None, reason="needs torch")
+def test_picked_probabilities_rewrite_keeps_the_label_indexing():
+    src = """
+        import torch
+        def loss(logits, target):
+            p = torch.softmax(logits, dim=1)
+            return -torch.log(p[torch.arange(len(target)), target]).mean()
+    """
+    old, new = both(src, "cross-entropy-from-probs", "loss")
+    x, y = torch.tensor(ORDINARY), torch.tensor([0, 1, 2, 3])
+    torch.testing.assert_close(new(x, y), old(x, y))
+    far, label = torch.tensor([[0.0, 300.0]], dtype=torch.float32), torch.tensor([0])
+    assert torch.isinf(old(far, label))
+    # reference: torch.nn.functional.cross_entropy on the logits
+    torch.testing.assert_close(new(far, label), torch.nn.functional.cross_entropy(far, label))

@@ -345,13 +345,27 @@ def _nll_log(ctx: Context, ref: Ref):
 _CE = "negative log-likelihood of softmax probabilities"
 
 
+def _picked_fix(ctx: Context, o: Origin, picked: Ref, at: ast.AST):
+    """``log(p[rows, labels])`` -> ``log_softmax(...)[rows, labels]``: the rewrite keeps
+    the indexing; a gather call gets no rewrite."""
+    sub = facts.strip(picked).node
+    if not isinstance(sub, ast.Subscript) or not _names_stable(ctx, sub.slice, picked):
+        return None
+    got = log_softmax_text(ctx, o, facts.strip(picked.child(sub.value)))
+    if got is None:
+        return None
+    text, extra = got
+    kind = "auto" if o.how == "framework" and not extra else "review"
+    return ctx.fix(kind, [ctx.edit(at, f"{text}[{ctx.text(sub.slice)}]"), *extra], at=at)
+
+
 def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
     arg = log_argument(ctx, log_ref.node)
     src = facts.unguard(arg)
     guarded = src.node is not facts.strip(arg).node
     # A log of gathered entries (p[range(n), y]) has no whole-log rewrite; dropping an
     # epsilon guard changes the values, so that rewrite needs a review.
-    fix = _log_of_softmax_fix(ctx, o, src, log_ref.node) if facts.origin(src) is not None else None
+    fix = _log_of_softmax_fix(ctx, o, src, log_ref.node) if facts.origin(src) is not None else _picked_fix(ctx, o, src, log_ref.node)
     if fix is not None and guarded:
         fix = replace(fix, kind="review")
     eps = "; an epsilon guard only caps it near -log(eps) and stalls the gradient" if guarded else ""
