@@ -153,6 +153,12 @@ def test_changed_since_fixes_only_changed_lines(tmp_path, monkeypatch):
     repo = new_repo(tmp_path / "repo", {"m.py": SOFTMAX})
     monkeypatch.chdir(repo)
     (repo / "m.py").write_text(SOFTMAX + "\n\n" + LOGSUMEXP.replace("import numpy as np\n", ""))
+    preview = run("fix", "--diff", "--changed-since", "HEAD", "m.py")
+    assert preview.exit_code == 0, preview.output
+    assert re.findall(rb"^[-+] .*$", preview.stdout_bytes, re.M) == [
+        b"-    return np.log(np.sum(np.exp(x)))",
+        b"+    return np.logaddexp.reduce(x, axis=None)",
+    ]
     result = run("fix", "--changed-since", "HEAD", "m.py")
     assert result.exit_code == 0, result.output
     text = (repo / "m.py").read_text()

@@ -10,6 +10,7 @@ import codecs
 import os
 import stat
 import textwrap
+import time
 
 import pytest
 
@@ -167,6 +168,18 @@ def test_identical_import_insertions_from_several_findings_are_applied_once(tmp_
     assert len(result.changes[0].fixed) == 2
 
 
+def test_import_above_a_shebang_and_coding_declaration_is_refused(tmp_path, rules):
+    # PEP 263: the declaration works on line 1 or 2 only; with no import and no
+    # docstring in the file, the import would be inserted at line 1.
+    check = rewriting(lambda a: f"unfrob({a})", kind="review", with_import="from frobkit import unfrob")
+    config = rules("frob-import", check, kind="review")
+    source = b"#!/usr/bin/env python\n# -*- coding: latin-1 -*-\ny = frob('\xe9')\n"
+    path = _file(tmp_path, source)
+    result = fix_paths([str(path)], config, include_review=True)
+    assert path.read_bytes() == source and result.exit_code == 3
+    assert "shebang or coding declaration" in result.left.problems[0].message
+
+
 def test_review_fixes_wait_for_include_review(tmp_path, rules):
     config = rules("frob-review", rewriting(lambda a: f"unfrob({a})", kind="review"), kind="review")
     path = _file(tmp_path, b"y = frob(x)\n")
@@ -280,6 +293,30 @@ def test_file_changed_during_the_run_is_not_overwritten(tmp_path, rules, monkeyp
     result = fix_paths([str(path)], config)
     assert path.read_bytes() == b"y = frob(x)  # edited meanwhile\n"
     assert result.exit_code == 3 and "changed on disk" in result.left.problems[0].message
+
+
+def test_file_edited_between_scan_and_fix_is_left_alone(tmp_path, rules, monkeypatch):
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    path = _file(tmp_path, b"y = frob(x)\n")
+    real_scan = fixmod.scan
+
+    def scan_then_edit(*args, **kw):
+        found = real_scan(*args, **kw)
+        path.write_bytes(b"# a line more\ny = frob(x)\n")  # the findings' lines are off by one now
+        return found
+
+    monkeypatch.setattr(fixmod, "scan", scan_then_edit)
+    result = fix_paths([str(path)], config)
+    assert path.read_bytes() == b"# a line more\ny = frob(x)\n"
+    assert "changed on disk after the scan began" in result.left.problems[0].message
+
+
+def test_file_dated_in_the_future_is_still_fixed(tmp_path, rules):
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    path = _file(tmp_path, b"y = frob(x)\n")
+    future = time.time() + 86400  # as unpacked from an archive made on a fast clock
+    os.utime(path, (future, future))
+    assert fix_paths([str(path)], config).exit_code == 0 and path.read_bytes() == b"y = unfrob(x)\n"
 
 
 def test_one_refused_file_does_not_stop_the_others(tmp_path, rules):

@@ -174,16 +174,18 @@ def _replace_expressions(text: str, exprs: list[Placed]) -> str:
         module = cst.parse_module(text)
     except (cst.ParserSyntaxError, RecursionError) as e:
         raise Unsafe(f"libcst cannot parse the file: {str(e).splitlines()[0]}") from None
-    wrapper = MetadataWrapper(module, unsafe_skip_copy=True)
-    ranges = wrapper.resolve(PositionProvider)
     wanted = {}
     for p in exprs:
         try:
             wanted[p.span] = cst.parse_expression(p.text)
         except cst.ParserSyntaxError:
             raise Unsafe(f"the rewrite for line {p.span.line} is not an expression: {p.text!r}") from None
-    replacer = _replacer(ranges, wanted)
-    out = wrapper.module.visit(replacer)
+    try:
+        wrapper = MetadataWrapper(module, unsafe_skip_copy=True)
+        replacer = _replacer(wrapper.resolve(PositionProvider), wanted)
+        out = wrapper.module.visit(replacer)
+    except RecursionError:  # libcst recurses per nesting level (measurements.md)
+        raise Unsafe("the code is nested too deeply for libcst to rewrite") from None
     missing = sorted(set(wanted) - replacer.done)
     if missing:
         s = missing[0]

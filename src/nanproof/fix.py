@@ -21,7 +21,7 @@ from .edits import Text, Unsafe, apply, carry_lines, choose, forward, place
 from .model import Finding, Problem, ScanResult
 from .read import ReadError, Source, decode, encode, read_bytes
 from .registry import Rule
-from .verify import check_round
+from .verify import check_header, check_round
 
 # The README quotes this sentence; the text output prints it once per run that changed
 # or diffed anything.
@@ -123,7 +123,7 @@ def fix_bytes(data: bytes, config: Config = Config(), include_review: bool = Fal
         return FixResult((), ScanResult(1, first.findings, ()), False)
     try:
         done = settle(source, findings, select_rules(config), kinds, False)
-        after = encode(source, done.text)
+        after = encoded(source, done.text)
     except (Unsafe, UnicodeEncodeError) as e:
         problem = Problem(path, f"not fixed, left unchanged: {_reason(e, source)}")
         return FixResult((), ScanResult(1, first.findings, (problem,)), False)
@@ -138,10 +138,12 @@ def fix_file(path: str, findings: list[Finding], rules: list[Rule], kinds, confi
     try:
         data = read_bytes(path)
         source = decode(path, data)
-        if os.stat(path).st_mtime > started:
+        # Modified since the scan began (a future timestamp from an unpacked archive or
+        # a skewed clock is not a modification): the findings may point elsewhere now.
+        if started <= os.stat(path).st_mtime <= time.time():
             raise Unsafe("the file changed on disk after the scan began; run again")
         done = settle(source, findings, rules, kinds, bool(config.changed_since))
-        after = encode(source, done.text)
+        after = encoded(source, done.text)
         if write:
             write_atomic(path, data, after)
     except ReadError as e:
@@ -153,6 +155,18 @@ def fix_file(path: str, findings: list[Finding], rules: list[Rule], kinds, confi
     except Exception as e:  # a bug of ours must cost one file, not the run
         return Problem(path, f"not fixed, left unchanged: internal error {type(e).__name__}: {e}".splitlines()[0])
     return FileChange(path, data, after, done.fixed, _lines(done.text)), done
+
+
+def encoded(source: Source, text: str) -> bytes:
+    """The bytes to write, checked to read back as the same text in the same encoding."""
+    data = encode(source, text)
+    try:
+        again = decode(source.path, data)
+    except ReadError:
+        again = None
+    if again is None or again.text != text or again.encoding != source.encoding:
+        raise Unsafe(f"the rewritten file would no longer read back as {source.encoding}")
+    return data
 
 
 def _reason(e: Exception, source: Source | None) -> str:
@@ -179,6 +193,7 @@ def settle(source: Source, findings: list[Finding], rules: list[Rule], kinds, ne
         placed = place(text, [f.fix for f in chosen], source.newline)
         new = Text(apply(text.text, placed))
         check_round(source.path, text, new, placed)
+        check_header(text, new)
         result = analyse_source(new.text, source.path, rules)
         if result.problem is not None:
             raise Unsafe(f"the result cannot be analysed: {result.problem.message}")

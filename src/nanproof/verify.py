@@ -15,9 +15,13 @@ run changes nothing) live in ``fix``.
 from __future__ import annotations
 
 import ast
+import re
 import warnings
 
 from .edits import Placed, Text, Unsafe
+
+# PEP 263: a coding declaration is honoured only on line 1 or 2; a shebang only on line 1.
+_COOKIE = re.compile(r"^[ \t\f]*#.*?coding[:=][ \t]*[-\w.]+")
 
 
 def check_round(path: str, old: Text, new: Text, placed: list[Placed]) -> None:
@@ -54,6 +58,19 @@ def check_round(path: str, old: Text, new: Text, placed: list[Placed]) -> None:
         raise Unsafe("the code is nested too deeply to verify the rewrite") from None
     if not same:
         raise Unsafe("the rewrite would change code outside the edited expressions")
+
+
+def check_header(old: Text, new: Text) -> None:
+    """A shebang or coding declaration at the top must stay where it works: an import
+    inserted above it would silence it (and change how the file decodes)."""
+    first = [old.text[a:b] for a, b in zip(old.starts[:2], [*old.starts[1:3], len(old.text)][:2])]
+    keep = 0
+    if first and (first[0].startswith("#!") or _COOKIE.match(first[0])):
+        keep = 1
+    if len(first) > 1 and _COOKIE.match(first[1]):
+        keep = 2
+    if not new.text.startswith("".join(first[:keep])):
+        raise Unsafe("the rewrite would move the shebang or coding declaration off the top lines")
 
 
 def _parse(path: str, text: str, what: str) -> ast.Module:
