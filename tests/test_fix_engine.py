@@ -20,6 +20,7 @@ from nanproof.analyse import Hit
 from nanproof.config import Config
 from nanproof.fix import MAX_ROUNDS, fix_bytes, fix_paths
 from nanproof.model import Edit, Fix, Span
+from nanproof.pages import examples, pages_dir
 
 
 def _file(tmp_path, text: str | bytes, name="m.py"):
@@ -151,6 +152,21 @@ def test_unsafe_rewrite_leaves_the_file_untouched_with_a_problem(tmp_path, rules
     assert reason in problem.message
     # What is left is still reported: the finding was not fixed.
     assert [f.rule for f in result.left.findings] == ["frob-double"]
+
+
+def test_keyword_inserted_inside_a_call_is_applied_with_the_call(tmp_path, rules):
+    def check(ctx):  # `frob(x)` -> `frob(x, safe=True)`: an insertion before the `)`
+        if frob_call(ctx.node) and not ctx.node.keywords:
+            arg = ctx.node.args[0]
+            s = ctx.analysis.span(arg)
+            insert = Edit(Span(s.end_line, s.end_column, s.end_line, s.end_column), ", safe=True")
+            yield Hit(ctx.node, "frob", ctx.fix("auto", [ctx.edit(arg, "abs(x)"), insert]))
+
+    config = rules("frob-keyword", check)
+    path = _file(tmp_path, b"y = (frob(x  # the input\n         ) )\n")
+    result = fix_paths([str(path)], config)
+    assert path.read_bytes() == b"y = (frob(abs(x), safe=True  # the input\n         ) )\n"
+    assert result.exit_code == 0
 
 
 # ---------------------------------------------------------------------------------------
@@ -372,3 +388,26 @@ def test_real_softmax_and_logsumexp_fixes_match_scipy_and_survive_large_logits(t
         "np.log(np.sum(np.exp(x)))", "np.logaddexp.reduce(x, axis=None)"
     )
     assert fix_paths([str(path)], Config(jobs=1)).changes == ()
+
+
+def _flagged_examples() -> list:
+    pages = sorted(pages_dir().glob("*.md"))
+    return [
+        pytest.param(ex.code, id=f"{page.stem}:line{ex.line}")
+        for page in pages
+        for ex in examples(page.read_text(encoding="utf-8"))
+        if ex.tag == "flagged"
+    ]
+
+
+@pytest.mark.parametrize("code", _flagged_examples())
+def test_every_flagged_page_example_is_fixed_cleanly_and_once(code):
+    """The real rules' fixes (review ones included) on the rule pages' own examples pass
+    the safety net, leave no fixable finding, and a second run changes nothing."""
+    result = fix_bytes(code.encode(), Config(jobs=1), include_review=True)
+    assert result.left.problems == ()
+    assert [f.rule for f in result.left.findings if f.fix is not None] == []
+    if result.changes:
+        again = fix_bytes(result.changes[0].after, Config(jobs=1), include_review=True)
+        assert again.changes == () and again.left.problems == ()
+

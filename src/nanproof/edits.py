@@ -21,7 +21,7 @@ import re
 from dataclasses import dataclass
 from typing import Iterable
 
-from .model import Edit, Finding, Fix, Span
+from .model import Edit, Finding, Span
 
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
 
@@ -98,27 +98,52 @@ def _overlap(a: Edit, b: Edit) -> bool:
     return a0 < b1 and b0 < a1
 
 
-def choose(findings: Iterable[Finding]) -> list[Finding]:
-    """The fixes of one round: outermost first (a rewrite of the whole usually accounts
-    for the parts), then in reading order; a fix any of whose edits overlaps an edit
-    already chosen waits for the next round, when the file has been analysed again."""
+def _insertion(e: Edit) -> bool:
+    s = e.span
+    return (s.line, s.column) == (s.end_line, s.end_column) and not whole_lines(e)
+
+
+def edits_of(text: Text, f: Finding) -> tuple[Edit, ...]:
+    """The edits to apply for a finding. Text inserted inside a line (a keyword after
+    the last argument) belongs to no expression node of its own: such a fix is applied
+    as one replacement of the finding's expression, with its edits made in it."""
+    edits = f.fix.edits
+    inside = sorted((e for e in edits if not whole_lines(e) and f.span.contains(e.span)), key=lambda e: e.span)
+    if not any(_insertion(e) for e in inside) or any(_overlap(a, b) for a, b in zip(inside, inside[1:])):
+        return edits
+    start = text.offset(f.span.line, f.span.column)
+    parts, pos = [], start
+    for e in inside:
+        at = text.offset(e.span.line, e.span.column)
+        parts += [text.text[pos:at], e.text]
+        pos = text.offset(e.span.end_line, e.span.end_column)
+    parts.append(text.text[pos : text.offset(f.span.end_line, f.span.end_column)])
+    return (Edit(f.span, "".join(parts)), *(e for e in edits if e not in inside))
+
+
+def choose(findings: Iterable[Finding], text: Text) -> list[tuple[Finding, tuple[Edit, ...]]]:
+    """The fixes of one round, with their edits: outermost first (a rewrite of the
+    whole usually accounts for the parts), then in reading order; a fix any of whose
+    edits overlaps an edit already chosen waits for the next round, when the file has
+    been analysed again."""
     order = sorted(findings, key=lambda f: (f.span.line, f.span.column, -f.span.end_line, -f.span.end_column, f.rule))
-    chosen: list[Finding] = []
+    chosen: list[tuple[Finding, tuple[Edit, ...]]] = []
     taken: list[Edit] = []
     for f in order:
-        if any(_overlap(e, t) for e in f.fix.edits for t in taken):
+        edits = edits_of(text, f)
+        if any(_overlap(e, t) for e in edits for t in taken):
             continue
-        chosen.append(f)
-        taken.extend(f.fix.edits)
+        chosen.append((f, edits))
+        taken.extend(edits)
     return chosen
 
 
-def place(text: Text, fixes: Iterable[Fix], newline: str) -> list[Placed]:
+def place(text: Text, edit_lists: Iterable[tuple[Edit, ...]], newline: str) -> list[Placed]:
     """Offsets of every edit, once each, sorted; replacement text in the file's newline
     style (a CRLF file stays CRLF)."""
     seen: dict[Edit, None] = {}
-    for fix in fixes:
-        for e in fix.edits:
+    for edits in edit_lists:
+        for e in edits:
             seen.setdefault(e)
     placed = []
     for e in seen:

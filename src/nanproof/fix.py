@@ -189,8 +189,9 @@ def settle(source: Source, findings: list[Finding], rules: list[Rule], kinds, ne
     origin: list[int | None] = list(range(1, len(text.starts) + 1))
     todo = list(findings)
     for _ in range(MAX_ROUNDS):
-        chosen = choose(todo)
-        placed = place(text, [f.fix for f in chosen], source.newline)
+        pairs = choose(todo, text)
+        chosen = [f for f, _ in pairs]
+        placed = place(text, [edits for _, edits in pairs], source.newline)
         new = Text(apply(text.text, placed))
         check_round(source.path, text, new, placed)
         check_header(text, new)
