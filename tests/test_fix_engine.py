@@ -346,6 +346,27 @@ def test_one_refused_file_does_not_stop_the_others(tmp_path, rules):
     assert config.rules == {"frob-good", "frob-sum"}
 
 
+def test_rewrite_the_file_encoding_cannot_store_is_refused(tmp_path, rules):
+    config = rules("frob-greek", rewriting(lambda a: f"unfrob({a}, 'λ')"))
+    source = b"# -*- coding: latin-1 -*-\ny = frob(x)  # \xe9\n"  # ISO 8859-1 has no lambda
+    path = _file(tmp_path, source)
+    result = fix_paths([str(path)], config)
+    assert path.read_bytes() == source and "encoding (iso-8859-1) cannot store" in result.left.problems[0].message
+
+
+def test_an_engine_bug_costs_one_file_not_the_run(tmp_path, rules, monkeypatch):
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    path = _file(tmp_path, b"y = frob(x)\n")
+
+    def broken(*_):
+        raise ValueError("deliberate")
+
+    monkeypatch.setattr(fixmod, "check_header", broken)
+    result = fix_paths([str(path)], config)
+    assert path.read_bytes() == b"y = frob(x)\n" and result.exit_code == 3
+    assert result.left.problems[0].message == "not fixed, left unchanged: internal error ValueError: deliberate"
+
+
 def test_standard_input_bytes_are_fixed_in_memory(rules):
     config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
     result = fix_bytes(b"y = frob(x)  # c\r\n", config)

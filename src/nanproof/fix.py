@@ -122,10 +122,9 @@ def fix_bytes(data: bytes, config: Config = Config(), include_review: bool = Fal
     if not findings:
         return FixResult((), ScanResult(1, first.findings, ()), False)
     try:
-        done = settle(source, findings, select_rules(config), kinds, False)
-        after = encoded(source, done.text)
-    except (Unsafe, UnicodeEncodeError) as e:
-        problem = Problem(path, f"not fixed, left unchanged: {_reason(e, source)}")
+        done, after = fix_source(source, findings, select_rules(config), kinds, False)
+    except Unsafe as e:
+        problem = Problem(path, f"not fixed, left unchanged: {e}")
         return FixResult((), ScanResult(1, first.findings, (problem,)), False)
     change = FileChange(path, data, after, done.fixed, _lines(done.text))
     return FixResult((change,), ScanResult(1, done.findings, ()), False)
@@ -134,7 +133,6 @@ def fix_bytes(data: bytes, config: Config = Config(), include_review: bool = Fal
 def fix_file(path: str, findings: list[Finding], rules: list[Rule], kinds, config: Config, started: float, write: bool):
     """Read, fix in memory, verify, and (with ``write``) replace one file.
     Returns (FileChange, Settled), or a Problem when the file is left as it was."""
-    source = None
     try:
         data = read_bytes(path)
         source = decode(path, data)
@@ -142,37 +140,37 @@ def fix_file(path: str, findings: list[Finding], rules: list[Rule], kinds, confi
         # a skewed clock is not a modification): the findings may point elsewhere now.
         if started <= os.stat(path).st_mtime <= time.time():
             raise Unsafe("the file changed on disk after the scan began; run again")
-        done = settle(source, findings, rules, kinds, bool(config.changed_since))
-        after = encoded(source, done.text)
+        done, after = fix_source(source, findings, rules, kinds, bool(config.changed_since))
         if write:
             write_atomic(path, data, after)
     except ReadError as e:
         return Problem(path, str(e))
-    except (Unsafe, UnicodeEncodeError) as e:
-        return Problem(path, f"not fixed, left unchanged: {_reason(e, source)}")
+    except Unsafe as e:
+        return Problem(path, f"not fixed, left unchanged: {e}")
     except OSError as e:
         return Problem(path, f"not fixed, left unchanged: {e.strerror or e}")
-    except Exception as e:  # a bug of ours must cost one file, not the run
-        return Problem(path, f"not fixed, left unchanged: internal error {type(e).__name__}: {e}".splitlines()[0])
     return FileChange(path, data, after, done.fixed, _lines(done.text)), done
 
 
-def encoded(source: Source, text: str) -> bytes:
-    """The bytes to write, checked to read back as the same text in the same encoding."""
-    data = encode(source, text)
+def fix_source(source: Source, findings: list[Finding], rules: list[Rule], kinds, near_fixes_only: bool) -> tuple[Settled, bytes]:
+    """The fixed text and the bytes to write, checked to read back as the same text in
+    the same encoding. Raises Unsafe, for a bug of ours too: it must cost one file, not
+    the run."""
     try:
+        done = settle(source, findings, rules, kinds, near_fixes_only)
+        data = encode(source, done.text)
         again = decode(source.path, data)
+    except Unsafe:
+        raise
+    except UnicodeEncodeError:
+        raise Unsafe(f"the rewrite holds characters the file's encoding ({source.encoding}) cannot store") from None
     except ReadError:
         again = None
-    if again is None or again.text != text or again.encoding != source.encoding:
+    except Exception as e:
+        raise Unsafe(f"internal error {type(e).__name__}: {e}".splitlines()[0]) from e
+    if again is None or again.text != done.text or again.encoding != source.encoding:
         raise Unsafe(f"the rewritten file would no longer read back as {source.encoding}")
-    return data
-
-
-def _reason(e: Exception, source: Source | None) -> str:
-    if isinstance(e, UnicodeEncodeError) and source is not None:
-        return f"the rewrite holds characters the file's encoding ({source.encoding}) cannot store"
-    return str(e)
+    return done, data
 
 
 def settle(source: Source, findings: list[Finding], rules: list[Rule], kinds, near_fixes_only: bool) -> Settled:
