@@ -105,3 +105,40 @@ def add_keyword(call_text: str, keyword: str) -> str | None:
         inner = inner[:-1]
     sep = "" if inner.endswith("(") else ", "
     return f"{inner}{sep}{keyword})"
+
+
+# Submodules a bare ``import PACKAGE`` always loads, so ``torch.nn.functional.softplus``
+# works after ``import torch`` alone (checked in sys.modules with torch 2.13; for jax and
+# tensorflow from memory of their package ``__init__``). ``scipy`` is absent on purpose:
+# ``import scipy`` alone leaves ``scipy.special`` unloaded (checked with scipy 1.x).
+_LOADED_WITH = {
+    "torch": ("torch.nn", "torch.nn.functional", "torch.special"),
+    "jax": ("jax.nn", "jax.numpy"),
+    "tensorflow": ("tensorflow.math", "tensorflow.nn"),
+}
+
+
+def reachable(ref: Ref, qual: str) -> str | None:
+    """Code naming the function ``qual`` (``scipy.special.expit``) through the file's own
+    imports, as seen from ``ref``: ``expit``, ``sp.expit``, ``scipy.special.expit``; None
+    when no import makes it available."""
+    from .names import _import_target
+
+    module, name = qual.rsplit(".", 1)
+    scope = ref.scope
+    while scope is not None:
+        for bound, bindings in scope.bindings().items():
+            b = bindings[0]
+            if len(bindings) != 1 or b.kind != "import" or ref.scope.lookup(bound, ref.pos, ref.path) is not b:
+                continue
+            target = _import_target(b)
+            if target == qual:
+                return bound
+            loaded = {target, *_LOADED_WITH.get(target, ())}
+            if isinstance(b.stmt, ast.Import) and not b.value.asname:  # import a.b.c
+                parts = b.value.name.split(".")
+                loaded.update(".".join(parts[: i + 1]) for i in range(len(parts)))
+            if module in loaded:
+                return f"{bound}{module[len(target):]}.{name}"
+        scope = scope.parent
+    return None
