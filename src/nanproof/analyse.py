@@ -16,6 +16,7 @@ from typing import Iterable
 
 from .flow import AMBIGUOUS, Path, Ref, Scope, child_blocks, statements_with_paths
 from .model import Edit, FileResult, Finding, Fix, Problem, Span
+from .read import physical_lines
 from .registry import Rule
 
 _SUPPRESS = re.compile(r"#\s*nanproof:\s*allow(-file)?(?:\[([^\]]*)\])?")
@@ -53,7 +54,7 @@ class Analysis:
     def __init__(self, path: str, text: str, tree: ast.Module, project: dict | None) -> None:
         self.path = path
         self.text = text
-        self.lines = text.splitlines(keepends=True)
+        self.lines = physical_lines(text)
         self.tree = tree
         self.project = project or {}
         self.module = Scope(tree, None)
@@ -125,7 +126,7 @@ class Context:
 
 def _apply(text: str, edits, line0: int, col0: int) -> str:
     """Apply edits (spans relative to a text starting at line0:col0), last first."""
-    lines = text.splitlines(keepends=True) or [""]
+    lines = physical_lines(text) or [""]
 
     def offset(line: int, col: int) -> int:
         i = line - line0
@@ -135,7 +136,7 @@ def _apply(text: str, edits, line0: int, col0: int) -> str:
     for e in sorted(edits, key=lambda e: (e.span.line, e.span.column), reverse=True):
         a, b = offset(e.span.line, e.span.column), offset(e.span.end_line, e.span.end_column)
         text = text[:a] + e.text + text[b:]
-        lines = text.splitlines(keepends=True) or [""]
+        lines = physical_lines(text) or [""]
     return text
 
 

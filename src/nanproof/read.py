@@ -56,6 +56,13 @@ def decode(path: str, data: bytes) -> Source:
     return Source(path, text, "utf-8" if bom else encoding, bom, newline)
 
 
+def physical_lines(text: str) -> list[str]:
+    """The lines as Python numbers them (broken at \\r\\n, \\r, \\n), with their line breaks.
+    ``str.splitlines`` also breaks at form feeds and other separators, which would shift
+    every later line number against the parser's."""
+    return io.StringIO(text, newline="").readlines()
+
+
 def read_source(path: str) -> Source:
     return decode(path, read_bytes(path))
 

@@ -3,26 +3,21 @@ source line with the span marked, the rewrite, and a closing summary."""
 from __future__ import annotations
 
 import io
-import re
 
 from ..model import Finding, ScanResult
-from ..read import ReadError, read_source
+from ..read import ReadError, physical_lines, read_source
 from .summary import Summary, fold, plural, summarise
 
 _STYLE = {"error": "bold red", "warning": "yellow", "note": "cyan"}
 FOLDERS = 10  # folder lines in the summary; the rest are counted in one line
-# The line breaks Python's tokenizer counts; str.splitlines also breaks at form feeds
-# and other separators, which would shift every later line number.
-_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 
 
 def source_lines(path: str, cache: dict) -> list[str]:
     """The lines of PATH as analysed (empty when it cannot be read again), cached."""
     if path not in cache:
         try:
-            lines = _LINE_BREAK.split(read_source(path).text) if path != "-" else []
-            # A final line break ends the last line; it does not start another.
-            cache[path] = lines[:-1] if lines and lines[-1] == "" else lines
+            text = read_source(path).text if path != "-" else ""
+            cache[path] = [line.rstrip("\r\n") for line in physical_lines(text)]
         except (ReadError, OSError):
             cache[path] = []
     return cache[path]
