@@ -72,13 +72,8 @@ PRESERVED = {
         b"# -*- coding: latin-1 -*-\nname = '\xe9t\xe9'  # \xe9\ny = unfrob(name)\n",
     ),
     "no-final-newline": (b"y = frob(x)", b"y = unfrob(x)"),
-    "tabs-and-form-feed": pytest.param(
-        b"if x:\n\ty = frob(x)\n\x0c\nz = frob(y)\n",
-        b"if x:\n\ty = unfrob(x)\n\x0c\nz = unfrob(y)\n",
-        # analyse.Analysis splits lines with str.splitlines, which also breaks at form
-        # feeds: the text a rule copies from the line after one comes from the wrong line.
-        marks=pytest.mark.xfail(strict=True, reason="analyse.Analysis.lines breaks at form feeds"),
-    ),
+    # Python counts no line break at a form feed (str.splitlines would).
+    "tabs-and-form-feed": (b"if x:\n\ty = frob(x)\n\x0c\nz = frob(y)\n", b"if x:\n\ty = unfrob(x)\n\x0c\nz = unfrob(y)\n"),
     "parenthesised-node": (b"y = 2 * ( frob(x) ) # (c)\n", b"y = 2 * ( unfrob(x) ) # (c)\n"),
 }
 
@@ -293,6 +288,24 @@ def test_symbolic_link_is_followed_not_replaced(tmp_path, rules):
     link.symlink_to(target)
     fix_paths([str(link)], config)
     assert link.is_symlink() and target.read_bytes() == b"y = unfrob(x)\n"
+
+
+def test_hard_linked_file_is_reported_not_split(tmp_path, rules):
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    path = _file(tmp_path, b"y = frob(x)\n")
+    os.link(path, tmp_path / "twin.py.txt")
+    result = fix_paths([str(path)], config)
+    assert path.read_bytes() == b"y = frob(x)\n" and "hard links" in result.left.problems[0].message
+
+
+def test_owner_is_kept(tmp_path, rules):
+    if os.geteuid() != 0:
+        pytest.skip("only a superuser can give a file to another owner")
+    config = rules("frob-good", rewriting(lambda a: f"unfrob({a})"))
+    path = _file(tmp_path, b"y = frob(x)\n")
+    os.chown(path, 12345, 23456)
+    fix_paths([str(path)], config)
+    assert (path.stat().st_uid, path.stat().st_gid) == (12345, 23456) and path.read_bytes() == b"y = unfrob(x)\n"
 
 
 def test_file_changed_during_the_run_is_not_overwritten(tmp_path, rules, monkeypatch):

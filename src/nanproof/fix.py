@@ -254,6 +254,8 @@ def write_atomic(path: str, before: bytes, after: bytes) -> None:
     # read-only was marked so on purpose.
     if not os.access(target, os.W_OK) or not st.st_mode & (stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH):
         raise Unsafe("the file is read-only")
+    if st.st_nlink > 1:  # a rename gives this name a new file and leaves the others old
+        raise Unsafe("the file has other hard links, which replacing it would split")
     folder, name = os.path.split(target)
     try:
         fd, tmp = tempfile.mkstemp(dir=folder, prefix=f".{name}.", suffix=".nanproof-tmp")
@@ -265,6 +267,10 @@ def write_atomic(path: str, before: bytes, after: bytes) -> None:
             fh.flush()
             os.fsync(fh.fileno())
         os.chmod(tmp, stat.S_IMODE(st.st_mode))
+        try:  # the owner stays (a superuser fixing someone's file); others may not chown
+            os.chown(tmp, st.st_uid, st.st_gid)
+        except OSError:
+            pass
         if _current(target) != before:
             raise Unsafe("the file changed on disk while it was being fixed; run again")
         os.replace(tmp, target)
