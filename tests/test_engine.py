@@ -16,6 +16,7 @@ def test_discovery_skips_hidden_virtualenv_and_build_folders_but_not_explicit_fi
         p.parent.mkdir(parents=True, exist_ok=True)
         p.write_text("x = 1\n")
     (tmp_path / "env2" / "pyvenv.cfg").write_text("home = /usr\n")
+    (tmp_path / "venv" / "pyvenv.cfg").write_text("home = /usr\n")
     files, problems = discover([str(tmp_path), str(tmp_path / ".hidden" / "b.py")])
     rel = sorted(os.path.relpath(f, tmp_path) for f in files)
     assert rel == [".hidden/b.py", "pkg/a.py", "pkg/g.pyi"]
@@ -109,3 +110,24 @@ def test_reassignment_after_a_shift_is_followed_in_order():
     # the shift is undone by a later assignment: the softmax is unshifted again
     src = "import numpy as np\ndef f(z, w):\n    z = z - z.max()\n    z = w * 1e3\n    e = np.exp(z)\n    return e / e.sum()\n"
     assert ids(src) == ["softmax-unshifted"]
+
+
+def test_a_package_named_venv_is_scanned_but_a_real_environment_is_not(tmp_path):
+    (tmp_path / "venv").mkdir()
+    (tmp_path / "venv" / "builder.py").write_text(UNSTABLE)
+    (tmp_path / "env").mkdir()
+    (tmp_path / "env" / "pyvenv.cfg").write_text("home = /usr/bin\n")
+    (tmp_path / "env" / "lib.py").write_text(UNSTABLE)
+    (tmp_path / "conda").mkdir()
+    (tmp_path / "conda" / "conda-meta").mkdir()
+    (tmp_path / "conda" / "x.py").write_text(UNSTABLE)
+    files, _ = discover([str(tmp_path)])
+    assert [os.path.relpath(f, tmp_path) for f in files] == [os.path.join("venv", "builder.py")]
+
+
+def test_global_statement_at_module_level_does_not_loop():
+    assert ids("import numpy as np\nglobal cache\ncache = None\ndef f(z):\n    global cache\n    return np.log(np.sum(np.exp(z)))\n") == ["logsumexp-unshifted"]
+
+
+def test_exp_of_negated_uniform_draws_is_bounded():
+    assert ids("import numpy as np\nrng = np.random.default_rng(0)\ny = np.random.rand(10)\nw = np.exp(-y)\np = w / w.sum()\nq = np.exp(-rng.random(5))\nr = q / q.sum()\n") == []

@@ -457,3 +457,48 @@ def test_flags_softmax_without_dim(src):
 ])
 def test_ignores_softmax_with_dim_or_of_other_frameworks(src):
     assert "softmax-implicit-dim" not in ids(src)
+
+
+def test_flags_element_loop_with_diagonal_branch():
+    src = """
+        import numpy as np
+        def softmax_grad(y, g):
+            n = y.shape[0]
+            J = np.empty((n, n))
+            for i in range(n):
+                for j in range(n):
+                    if i == j:
+                        J[i, j] = y[i] * (1 - y[j])
+                    else:
+                        J[i, j] = -y[i] * y[j]
+            return J.dot(g)
+    """
+    assert ids(src).count("softmax-jacobian-dense") == 2
+
+
+@pytest.mark.parametrize("src", [
+    # a Gram matrix of inner products: pairs of rows, not a Jacobian
+    """
+    import numpy as np
+    def gram(rows, w0):
+        n = len(rows)
+        a = np.zeros((n, n))
+        for i in range(n):
+            for j in range(i, n):
+                a[i, j] = (1 + w0) * np.vdot(rows[i], rows[j])
+        return a
+    """,
+    # a covariance built from counts of pairs
+    """
+    import numpy as np
+    def pair_cov(counts, n):
+        m = len(counts)
+        cov = np.empty((m, m))
+        for j in range(m):
+            for k in range(j, m):
+                cov[j, k] = n * (counts[j] + 1) * (counts[k] + 1) / 3.0
+        return cov
+    """,
+])
+def test_ignores_element_loops_that_are_not_a_softmax_jacobian(src):
+    assert "softmax-jacobian-dense" not in ids(src)

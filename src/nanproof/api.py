@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import os
 import sys
-from concurrent.futures import ProcessPoolExecutor
 from typing import Callable, Iterable
 
 from .analyse import analyse_source, module_parts
@@ -58,6 +57,8 @@ def _run(paths: list[str], rule_ids: tuple[str, ...], project: dict | None, jobs
             if progress:
                 progress(done0 + i + 1, total)
         return results
+    from concurrent.futures import ProcessPoolExecutor  # not imported for one-file runs
+
     size = max(1, min(32, len(paths) // (jobs * 8) or 1))
     chunks = [paths[i : i + size] for i in range(0, len(paths), size)]
     with ProcessPoolExecutor(max_workers=jobs, initializer=_worker_init) as pool:

@@ -7,7 +7,7 @@ from pathlib import PurePosixPath
 
 from .model import Problem
 
-SKIP_DIRS = frozenset({"__pycache__", "build", "dist", "node_modules", "site-packages", "venv", "env", "virtualenv"})
+SKIP_DIRS = frozenset({"__pycache__", "build", "dist", "node_modules", "site-packages"})
 SUFFIXES = (".py", ".pyi")
 
 
@@ -23,7 +23,9 @@ def _excluded(path: str, patterns: tuple[str, ...]) -> bool:
 
 
 def _is_venv(dirpath: str) -> bool:
-    return os.path.isfile(os.path.join(dirpath, "pyvenv.cfg"))
+    """A virtual environment (pyvenv.cfg) or a conda environment (conda-meta/), told by
+    its contents, not its name: the standard library has a package called ``venv``."""
+    return os.path.isfile(os.path.join(dirpath, "pyvenv.cfg")) or os.path.isdir(os.path.join(dirpath, "conda-meta"))
 
 
 def discover(paths: list[str], exclude: tuple[str, ...] = ()) -> tuple[list[str], list[Problem]]:

@@ -171,7 +171,7 @@ class Scope:
     # -- querying -----------------------------------------------------------------
     def lookup(self, name: str, pos: Pos | None, path: Path = ()) -> Binding | Ambiguous | None:
         """The binding of ``name`` that reaches a use at ``pos`` (None: position-agnostic)."""
-        if name in self._globals_of():
+        if name in self._globals_of() and self.parent is not None:
             return self.module.lookup(name, None)
         if isinstance(self.node, ast.ClassDef) and pos is None:
             # class bodies are not visible from methods

@@ -96,6 +96,8 @@ _OPS: dict[str, tuple[str, ...]] = {
     "expand_dims": ("numpy.expand_dims", "torch.unsqueeze", "tensorflow.expand_dims"),
     "norm": ("numpy.norm", "torch.norm", "torch.vector_norm", "tensorflow.norm"),
     "var": ("numpy.var", "numpy.nanvar", "torch.var", "tensorflow.reduce_variance", "statistics.pvariance", "statistics.variance"),
+    # uniform draws in [0, 1)
+    "rand": ("numpy.random.rand", "numpy.random.random", "numpy.random.random_sample", "torch.rand", "torch.rand_like"),
     "xlogy": ("scipy.special.xlogy", "torch.xlogy", "scipy.special.entr", "scipy.special.rel_entr"),
     "hypot": ("numpy.hypot", "math.hypot", "torch.hypot"),
     # statistics family: entropy in bits / digits, squares written as powers, nan cleanup
@@ -117,7 +119,7 @@ METHODS = {
     "detach": "identity", "float": "identity", "double": "identity", "half": "identity",
     "astype": "identity", "type": "identity", "to": "identity", "contiguous": "identity",
     "clone": "identity", "cpu": "identity", "cuda": "identity", "numpy": "identity", "copy": "identity",
-    "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
+    "random": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
     "log2": "log2", "log10": "log10", "pow": "power", "nan_to_num": "nan_to_num",
 }
 NO_ARG_METHODS = {"exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",

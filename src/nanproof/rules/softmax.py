@@ -756,9 +756,7 @@ def _needs_flag(ctx: Context, y: Ref) -> bool:
     o = facts.origin(y)
     if o is not None and o.kind == "softmax":
         return True
-    fn = ctx.scope.node
-    name = getattr(fn, "name", "")
-    if "backward" in name or "grad" in name or "vjp" in name:
+    if _gradient_function(ctx):
         return True
     stmt = ctx.stmt
     if isinstance(stmt, ast.Assign) and len(stmt.targets) == 1 and isinstance(stmt.targets[0], ast.Name):
@@ -808,32 +806,67 @@ def softmax_jacobian_dense(ctx: Context):
 
 
 def _loop_jacobian(ctx: Context):
-    """``J[i, j] = y[i] * (delta - y[j])`` inside ``for i`` / ``for j`` loops."""
+    """``J[i, j] = y[i] * (delta - y[j])`` (or ``-y[i] * y[j]`` off the diagonal) inside
+    ``for i`` / ``for j`` loops, with y a softmax or J used in a product."""
     stmt = ctx.node
     if len(stmt.targets) != 1 or not isinstance(stmt.targets[0], ast.Subscript):
         return
     t = stmt.targets[0]
     idx = t.slice.elts if isinstance(t.slice, ast.Tuple) else None
+    matrix = t.value
     if idx is None and isinstance(t.value, ast.Subscript):  # J[i][j]
-        idx = [t.value.slice, t.slice]
+        idx, matrix = [t.value.slice, t.slice], t.value.value
     if not idx or len(idx) != 2 or not all(isinstance(i, ast.Name) for i in idx) or idx[0].id == idx[1].id:
         return
     i, j = idx[0].id, idx[1].id
-    loops = {b.name for b in _loop_vars(ctx)}
-    if not {i, j} <= loops:
+    if not {i, j} <= {b.name for b in _loop_vars(ctx)}:
         return
-    subs = {}
-    for n in ast.walk(stmt.value):
-        if isinstance(n, ast.Subscript) and isinstance(n.slice, ast.Name) and n.slice.id in (i, j):
-            subs.setdefault(n.slice.id, []).append(n.value)
-    if i not in subs or j not in subs:
+    y = _jacobian_entry(ctx, stmt.value, i, j)
+    if y is None:
         return
-    if not any(facts.same(ctx.ref(a), ctx.ref(b)) for a in subs[i] for b in subs[j]):
-        return
-    if not any(isinstance(n, ast.BinOp) and isinstance(n.op, ast.Mult) for n in ast.walk(stmt.value)):
+    o = facts.origin(y)
+    used = isinstance(matrix, ast.Name) and any(_product_around(ctx, load) for load in ctx.scope.loads(matrix.id))
+    if not (used or (o is not None and o.kind == "softmax") or _gradient_function(ctx)):
         return
     msg = f"element loop building the dense softmax Jacobian: O(n^2) Python-level work and memory where the vector-Jacobian product {_VJP} is O(n)"
     yield Hit(stmt, msg, suggestion=_VJP)
+
+
+def _element(node: ast.AST, index: str) -> ast.expr | None:
+    """``y`` of ``y[index]``."""
+    if isinstance(node, ast.Subscript) and isinstance(node.slice, ast.Name) and node.slice.id == index:
+        return node.value
+    return None
+
+
+def _jacobian_entry(ctx: Context, value: ast.AST, i: str, j: str) -> Ref | None:
+    """y when ``value`` is ``y[i] * (d - y[j])`` or ``-y[i] * y[j]`` (either order)."""
+    node = value
+    negated = False
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub):
+        node, negated = node.operand, True
+    if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Mult)):
+        return None
+    for a, b in ((node.left, node.right), (node.right, node.left)):
+        if isinstance(a, ast.UnaryOp) and isinstance(a.op, ast.USub):
+            a, negated = a.operand, not negated
+        yi = _element(a, i)
+        if yi is None:
+            continue
+        if negated:
+            yj = _element(b, j)
+        elif isinstance(b, ast.BinOp) and isinstance(b.op, ast.Sub):
+            yj = _element(b.right, j)
+        else:
+            yj = None
+        if yj is not None and facts.same(ctx.ref(yi), ctx.ref(yj)):
+            return ctx.ref(yi)
+    return None
+
+
+def _gradient_function(ctx: Context) -> bool:
+    name = getattr(ctx.scope.node, "name", "")
+    return any(w in name for w in ("backward", "grad", "vjp", "jacobian"))
 
 
 def _loop_vars(ctx: Context):
