@@ -91,6 +91,7 @@ def blocks(*tags: str) -> list:
 # Stated numbers: a figure written with k digits stands for the value rounded to them
 # ---------------------------------------------------------------------------------------
 NUMBER = re.compile(r"(?<![\w.])-?(?:nan|inf|\d+(?:\.\d+)?(?:e[-+]?\d+)?)(?!\w)(?!\.\d)")
+FIGURE = re.compile(r"(?<![\w.])-?\d+(?:\.\d+)?(?:e[-+]?\d+)?(?!\w)(?!\.\d)")  # prose says nan in words
 
 
 def agrees(stated: str, value: float) -> bool:
@@ -372,7 +373,7 @@ def test_prose_after_failing_block_states_what_it_returns(rule_id):
 @pytest.mark.parametrize("rule_id", PAGE_IDS)
 def test_every_figure_in_the_prose_is_a_checked_limit(rule_id):
     figures = FIGURES[rule_id]()
-    tokens = NUMBER.findall(prose(page_text(rule_id)))
+    tokens = FIGURE.findall(prose(page_text(rule_id)))
     unchecked = [t for t in tokens if not any(agrees(t, v) for v in figures)]
     assert not unchecked, f"figures no test computes: {unchecked}"
     unstated = [v for v in figures if not any(agrees(t, v) for t in tokens)]
@@ -401,6 +402,27 @@ def test_sigmoid_saturates_at_the_stated_limits(dt):
     assert scipy.special.expit(dt(zero + 0.01)) > 0 and scipy.special.expit(dt(zero - 0.01)) == 0
 
 
+@pytest.mark.parametrize("dt", [F32, F64])
+def test_torch_sigmoid_saturates_at_the_same_limits(dt):
+    torch = pytest.importorskip("torch")
+    one, zero = sigmoid_one_above(dt), -exp_overflow(dt)
+    sig = torch.sigmoid(torch.tensor([one - 0.01, one + 0.01, zero + 0.01, zero - 0.01], dtype=getattr(torch, dt.__name__)))
+    assert sig[0] < 1 and sig[1] == 1 and sig[2] > 0 and sig[3] == 0
+
+
+def test_tanh_sigmoid_loses_the_left_tail_that_expit_keeps():
+    # The sigmoid-manual page prefers expit to the tanh form for this reason.
+    x = np.array([-40.0, -38.0])
+    assert np.all(0.5 * (1 + np.tanh(0.5 * x)) == 0)
+    assert np.all(scipy.special.expit(x) > 0)
+
+
+def test_math_exp_raises_where_numpy_overflows():
+    # The sigmoid-manual page: math.exp raises OverflowError instead of returning inf.
+    with pytest.raises(OverflowError):
+        math.exp(exp_overflow(F64) + 0.01)
+
+
 def test_one_plus_half_epsilon_rounds_back_to_one():
     eps = finfo(F64, "eps")
     assert 1.0 + eps / 2 == 1.0 and 1.0 + eps > 1.0
@@ -426,12 +448,20 @@ def test_squares_overflow_above_square_root_of_max_and_numpy_norm_with_them(dt):
         assert np.isclose(scipy.linalg.norm(vec), big, rtol=1e-6)
 
 
+def test_torch_vector_norm_overflows_like_numpy():
+    # The norm-overflow page says torch.linalg.vector_norm needs explicit scaling.
+    torch = pytest.importorskip("torch")
+    big = torch.tensor([3e200, 4e200], dtype=torch.float64)
+    assert torch.linalg.vector_norm(big) == float("inf")
+    scale = big.abs().amax()
+    assert torch.isclose(scale * torch.linalg.vector_norm(big / scale), torch.tensor(5e200, dtype=torch.float64))
+
+
 def test_torch_implicit_softmax_dim_is_first_for_one_and_three_dims():
     torch = pytest.importorskip("torch")
-    for ndim, dim in ((1, 0), (2, 1), (3, 0), (4, 1)):
+    for ndim, dim in ((0, 0), (1, 0), (2, 1), (3, 0), (4, 1)):
         x = torch.arange(2.0 ** ndim).reshape((2,) * ndim)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
+        with pytest.warns(UserWarning, match="[Ii]mplicit dimension"):
             implicit = torch.nn.functional.softmax(x)
         assert torch.allclose(implicit, torch.softmax(x, dim=dim)), ndim
 
@@ -443,6 +473,20 @@ def test_implicit_dim_page_emulates_torch():
         warnings.simplefilter("ignore")
         implicit = torch.nn.functional.softmax(torch.tensor(ns["scores"]))
     assert np.allclose(ns["naive"], implicit.numpy(), rtol=1e-12, atol=0)
+
+
+def test_torch_bce_of_saturated_sigmoid_has_no_gradient():
+    # The bce-from-sigmoid page: the clamped loss is finite but its gradient vanishes,
+    # where the with-logits loss has gradient sigmoid(x) - t, about one.
+    torch = pytest.importorskip("torch")
+    F = torch.nn.functional
+    x = torch.tensor([40.0], dtype=torch.float64, requires_grad=True)
+    target = torch.tensor([0.0], dtype=torch.float64)
+    F.binary_cross_entropy(torch.sigmoid(x), target).backward()
+    assert x.grad.item() == 0.0
+    x.grad = None
+    F.binary_cross_entropy_with_logits(x, target).backward()
+    assert x.grad.item() == pytest.approx(1.0)
 
 
 def test_where_guard_leaks_nan_into_torch_gradient():
