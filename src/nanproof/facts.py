@@ -225,7 +225,7 @@ def max_operand(ref: Ref) -> Ref | None:
 # ---------------------------------------------------------------------------------------
 # Signs and bounds
 # ---------------------------------------------------------------------------------------
-_NONNEG_OPS = {"abs", "square", "exp", "sqrt", "softmax", "sigmoid", "softplus", "relu", "norm"}
+_NONNEG_OPS = {"abs", "square", "exp", "sqrt", "softmax", "sigmoid", "softplus", "relu", "norm", "rand"}
 _NONPOS_OPS = {"log_softmax", "log_sigmoid"}
 
 
@@ -561,14 +561,37 @@ def manual_sigmoid(ref: Ref) -> Ref | None:
             if t is None or t.masked:
                 continue
             if _const(node.left) == 1:
-                a = strip(t.arg).node
-                if isinstance(a, ast.UnaryOp) and isinstance(a.op, ast.USub):
-                    return t.arg.child(a.operand)
-                return None
+                x = negated(strip(t.arg).node)
+                return t.arg.child(x) if x is not None else None
             num = exp_term(ref.child(node.left))
             if num is not None and same(num.arg, t.arg):
                 return num.arg
     return None
+
+
+def negated(node: ast.expr) -> ast.expr | None:
+    """x for ``-x``; also ``X @ w`` for ``-X @ w`` (Python reads ``(-X) @ w``, which is
+    ``-(X @ w)`` exactly), likewise with ``*`` and ``/``. The latter is a new node that
+    spans ``X @ w`` in the source, so its text is the logits as written."""
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub):
+        return node.operand
+    if not (isinstance(node, ast.BinOp) and isinstance(node.op, (ast.Mult, ast.MatMult, ast.Div))):
+        return None
+    left = node.left
+    if isinstance(left, ast.UnaryOp):
+        inner = negated(left)
+        # only ``-X`` written tight: in ``-(a + b) * c`` a parenthesis would split the span
+        tight = inner is not None and (inner.lineno, inner.col_offset) == (left.lineno, left.col_offset + 1)
+        if not (tight and isinstance(inner, (ast.Name, ast.Attribute, ast.Subscript, ast.Call))):
+            return None
+    else:
+        inner = negated(left)
+        if inner is None:
+            return None
+    new = ast.BinOp(left=inner, op=node.op, right=node.right)
+    new.lineno, new.col_offset = inner.lineno, inner.col_offset
+    new.end_lineno, new.end_col_offset = node.end_lineno, node.end_col_offset
+    return new
 
 
 def _activation_kind(node: ast.expr, ref: Ref) -> str | None:
