@@ -751,6 +751,11 @@ SOFTPLUS = {
         def softplus(x):
             return jnp.log(1 + jnp.exp(x))
     """,
+    "cupy": """
+        import cupy as cp
+        def softplus(x):
+            return cp.log(1 + cp.exp(x))
+    """,
     "tensorflow1": """
         import tensorflow as tf
         def softplus(x):
@@ -783,7 +788,8 @@ def test_softplus_rewrites_by_framework():
     # torch's softplus switches to x above 20 whatever the dtype: not exact, so review
     assert (fixes["torch_functions"].kind, fixes["torch_functions"].replacement) == ("review", "torch.nn.functional.softplus(x)")
     assert fixes["tensorflow1"].kind == "review"
-    assert fixes["math_scalar"].replacement == "(max(x, 0) + math.log1p(math.exp(-abs(x))))"
+    assert fixes["math_scalar"].replacement == "(max(x, 0.0) + math.log1p(math.exp(-abs(x))))"
+    assert (fixes["cupy"].kind, fixes["cupy"].replacement) == ("auto", "cp.logaddexp(0, x)")
     assert fixes["from_numpy_import"].kind == "review"
 
 

@@ -302,7 +302,7 @@ def _softplus_code(ctx: Context, ec: OpCall, u: Ref) -> tuple[str, list, str] | 
     x, lib = ctx.text(u.node), _library(ec)
     if lib == "jax" and (got := reachable(ctx.ref(), "jax.nn.softplus")):
         return f"{got}({x})", [], "auto"
-    if lib == "numpy" or (lib == "jax" and ec.qual.startswith("jax.numpy.")):
+    if lib == "numpy" or (ec.qual or "").startswith(("cupy.", "jax.numpy.")):
         got = _sibling(ctx, ec, "logaddexp")
         return (f"{got[0]}(0, {x})", got[1], "auto") if got else None
     qual = {"torch": "torch.nn.functional.softplus", "tf": "tensorflow.math.softplus"}.get(lib)
@@ -311,7 +311,7 @@ def _softplus_code(ctx: Context, ec: OpCall, u: Ref) -> tuple[str, list, str] | 
     if lib == "math" and simple(u.node) and ctx.scope.lookup("max", None) is None and ctx.scope.lookup("abs", None) is None:
         got = _sibling(ctx, ec, "log1p")
         e = ctx.text(ec.call.func)
-        return (f"(max({x}, 0) + {got[0]}({e}(-abs({x}))))", got[1], "auto") if got else None
+        return (f"(max({x}, 0.0) + {got[0]}({e}(-abs({x}))))", got[1], "auto") if got else None
     return None
 
 
