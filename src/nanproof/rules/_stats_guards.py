@@ -1,0 +1,265 @@
+"""Where the nan of x * log(x) is kept out: the term itself (``p * log(p)``,
+``p * log(p / q)``), and the guards around it: positive or filtered values, Python
+branches, ``where`` / ``nansum`` / ``nan_to_num``. Answers lean towards silence."""
+from __future__ import annotations
+
+import ast
+from dataclasses import dataclass
+
+from .. import facts
+from ..analyse import Context
+from ..flow import _BLOCK_FIELDS, Ref, statements_with_paths
+from ..names import OpCall, qualname
+from ._stats_shapes import nan_aware
+
+
+# ---------------------------------------------------------------------------------------
+# Where a node sits in its statement
+# ---------------------------------------------------------------------------------------
+def _parents(ctx: Context) -> dict[int, ast.AST]:
+    key = ("parents", id(ctx.stmt))
+    cache = ctx.scope.cache
+    if key not in cache:
+        cache[key] = {id(c): n for n in ast.walk(ctx.stmt) for c in ast.iter_child_nodes(n)}
+    return cache[key]
+
+
+def _ancestors(ctx: Context, node: ast.AST):
+    """(child, parent) pairs from ``node`` up to its statement."""
+    parents = _parents(ctx)
+    while id(node) in parents:
+        parent = parents[id(node)]
+        yield node, parent
+        node = parent
+
+
+def needs_parens(ctx: Context, node: ast.AST) -> bool:
+    """Would a difference put in place of ``node`` need parentheses?"""
+    parent = _parents(ctx).get(id(node))
+    return not (isinstance(parent, (ast.stmt, ast.keyword)) or (isinstance(parent, ast.Call) and node in parent.args))
+
+
+def _statement(ctx: Context, sid: int) -> ast.stmt | None:
+    cache = ctx.scope.cache
+    if "statements_by_id" not in cache:
+        cache["statements_by_id"] = {id(s): s for s, _ in statements_with_paths(ctx.scope.node)}
+    return cache["statements_by_id"].get(sid)
+
+
+# ---------------------------------------------------------------------------------------
+# x * log(x) and its guards
+# ---------------------------------------------------------------------------------------
+_LOGS = ("log", "log2", "log10")
+
+
+@dataclass(frozen=True)
+class XLogX:
+    p: Ref  # the factor, sign removed
+    log: Ref  # the log call
+    oc: OpCall  # its operation
+    q: Ref | None  # the q of p * log(p / q) or p * (log(p) - log(q))
+    negated: bool  # an odd number of unary minus signs on the factors
+
+
+def _unsign(ref: Ref) -> tuple[Ref, bool]:
+    n = ref.node
+    if isinstance(n, ast.UnaryOp) and isinstance(n.op, ast.USub):
+        return ref.child(n.operand), True
+    return ref, False
+
+
+def _log_call(ref: Ref) -> tuple[Ref, OpCall, Ref] | None:
+    s = facts.strip(ref)
+    oc = facts.op_of(s)
+    if oc is None or oc.op not in _LOGS or oc.subject is None or (not oc.is_method and len(oc.call.args) != 1):
+        return None
+    return s, oc, s.child(oc.subject)
+
+
+def _log_term(p: Ref, other: Ref) -> tuple[Ref, OpCall, Ref | None] | None:
+    got = _log_call(other)
+    if got is not None:
+        log, oc, arg = got
+        if facts.same(p, arg):
+            return log, oc, None
+        a = facts.strip(arg)
+        if isinstance(a.node, ast.BinOp) and isinstance(a.node.op, ast.Div) and facts.same(p, a.child(a.node.left)):
+            return log, oc, a.child(a.node.right)
+        return None
+    d = facts.strip(other)
+    if isinstance(d.node, ast.BinOp) and isinstance(d.node.op, ast.Sub):
+        first, second = _log_call(d.child(d.node.left)), _log_call(d.child(d.node.right))
+        if first and second and first[1].op == second[1].op and facts.same(p, first[2]):
+            return first[0], first[1], second[2]
+    return None
+
+
+def xlogx_parts(ctx: Context, node: ast.BinOp) -> XLogX | None:
+    """``p * log(p)``, ``p * log(p / q)``, ``p * (log(p) - log(q))`` in either order."""
+    for a, b in ((node.left, node.right), (node.right, node.left)):
+        p, neg_p = _unsign(ctx.ref(a))
+        other, neg_l = _unsign(ctx.ref(b))
+        got = _log_term(p, other)
+        if got is not None:
+            return XLogX(p, got[0], got[1], got[2], neg_p != neg_l)
+    return None
+
+
+def positive(ref: Ref, depth: int = 0) -> bool:
+    """Evidently above 0: a positive constant, an epsilon, ``clip(p, lo, ...)`` /
+    ``maximum(p, lo)`` with such a ``lo``, a non-negative value plus such a constant."""
+    if depth > 4:
+        return False
+    s = facts.strip(ref)
+    n = s.node
+    c = facts._const(n)
+    if c is not None:
+        return c > 0
+    if facts.is_epsilon(s) or facts.unguard(s).node is not n or _counting_from_one(s):
+        return True
+    if isinstance(n, ast.BinOp) and isinstance(n.op, ast.Add):
+        l, r = s.child(n.left), s.child(n.right)
+        return (positive(l, depth + 1) and facts.nonneg(r)) or (positive(r, depth + 1) and facts.nonneg(l))
+    oc = facts.op_of(s)
+    if oc is not None and oc.op == "clip" and not (isinstance(n.func, ast.Attribute) and n.func.attr == "clamp_max"):
+        lo = oc.arg(0, "min", "a_min", "clip_value_min", "min_value")
+        return lo is not None and positive(s.child(lo), depth + 1)
+    if oc is not None and oc.op == "maximum" and len(n.args) == 2:
+        return any(positive(s.child(a), depth + 1) for a in n.args)
+    return False
+
+
+def _counting_from_one(ref: Ref) -> bool:
+    """``range(1, n)`` / ``np.arange(1, n)``: a start of at least 1, counting up."""
+    n = ref.node
+    if not (isinstance(n, ast.Call) and isinstance(n.func, (ast.Name, ast.Attribute)) and len(n.args) in (2, 3)):
+        return False
+    if qualname(ref.child(n.func)) not in ("builtins.range", "numpy.arange", "torch.arange"):
+        return False
+    start, step = facts._const(n.args[0]), facts._const(n.args[2]) if len(n.args) == 3 else 1
+    return start is not None and step is not None and start >= 1 and step > 0
+
+
+def filtered(ref: Ref) -> bool:
+    """Only the non-zero entries: ``p[p > 0]``, ``p[p != 0]``, ``p[np.nonzero(p)]``, or a
+    name bound to one of these."""
+    s = facts.strip(ref)
+    n = s.node
+    if not isinstance(n, ast.Subscript):
+        return False
+    idx = facts.strip(s.child(n.slice))
+    if guard_sign(idx, s.child(n.value)) == "pos":
+        return True
+    f = idx.node.func if isinstance(idx.node, ast.Call) else None
+    name = f.attr if isinstance(f, ast.Attribute) else f.id if isinstance(f, ast.Name) else ""
+    return name in ("nonzero", "flatnonzero", "argwhere")
+
+
+def _compare_side(ref: Ref, p: Ref) -> tuple[type, float] | None:
+    n = ref.node
+    if not (isinstance(n, ast.Compare) and len(n.ops) == 1):
+        return None
+    mirror = {ast.Gt: ast.Lt, ast.Lt: ast.Gt, ast.GtE: ast.LtE, ast.LtE: ast.GtE, ast.Eq: ast.Eq, ast.NotEq: ast.NotEq}
+    op, other = type(n.ops[0]), n.comparators[0]
+    if not facts.same(ref.child(n.left), p):
+        if not facts.same(ref.child(other), p):
+            return None
+        op, other = mirror.get(op, ast.Is), n.left
+    c = facts._const(other)
+    if c is None and facts.is_epsilon(ref.child(other)):
+        c = facts.EPS_MAX  # a small positive guard value
+    return (op, c) if c is not None else None
+
+
+def guard_sign(ref: Ref, p: Ref) -> str | None:
+    """"pos" when the condition holds only where p > 0 (``p > 0``, ``p != 0``, ``p > eps``,
+    ``p`` itself); "neg" when it holds wherever p <= 0 (``p == 0``, ``p <= eps``, ``not p``),
+    so that its else-branch has p > 0 (p is a probability: never below 0)."""
+    n = ref.node
+    if isinstance(n, ast.BoolOp):
+        found = [guard_sign(ref.child(v), p) for v in n.values]
+        want = "pos" if isinstance(n.op, ast.And) else "neg"
+        return want if want in found else None
+    if isinstance(n, ast.UnaryOp) and isinstance(n.op, ast.Not):
+        return {"pos": "neg", "neg": "pos"}.get(guard_sign(ref.child(n.operand), p))
+    if facts.same(ref, p):
+        return "pos"
+    side = _compare_side(ref, p)
+    if side is None:
+        return None
+    op, c = side
+    if (op is ast.Gt and c >= 0) or (op is ast.GtE and c > 0) or (op is ast.NotEq and c == 0):
+        return "pos"
+    if (op is ast.Eq and c == 0) or (op is ast.LtE and c >= 0) or (op is ast.Lt and c > 0):
+        return "neg"
+    return None
+
+
+def _block(ctx: Context) -> list:
+    if not ctx.path:
+        return getattr(ctx.scope.node, "body", [])
+    sid, i = ctx.path[-1]
+    s = _statement(ctx, sid)
+    if s is None:
+        return []
+    if i >= 10:
+        return s.cases[i - 10].body
+    block = getattr(s, _BLOCK_FIELDS[i], [])
+    return block if isinstance(block, list) else []
+
+
+_EXITS = (ast.Continue, ast.Return, ast.Break, ast.Raise)
+
+
+def statement_guard(ctx: Context, p: Ref) -> bool:
+    """Inside ``if p > 0:`` (or the else of ``if p == 0:``), or after an early
+    ``if p == 0: continue`` / ``return`` in the same block."""
+    for sid, block in ctx.path:
+        s = _statement(ctx, sid)
+        if isinstance(s, (ast.If, ast.While)):
+            t = guard_sign(ctx.ref(s.test), p)
+            if (block == 0 and t == "pos") or (block == 1 and t == "neg"):
+                return True
+    body = _block(ctx)
+    if not any(s is ctx.stmt for s in body):
+        return False
+    for s in body:
+        if s is ctx.stmt:
+            break
+        if isinstance(s, ast.If) and not s.orelse and isinstance(s.body[-1], _EXITS) and guard_sign(ctx.ref(s.test), p) == "neg":
+            return True
+    return False
+
+
+@dataclass(frozen=True)
+class Guard:
+    how: str  # "branch": a Python-level condition; "value": where / nansum / nan_to_num
+    word: str  # for the message
+    call: OpCall | None = None
+    node: ast.Call | None = None
+    branch: int = 0  # which argument of where() holds the term
+
+
+def expression_guard(ctx: Context, x: XLogX) -> Guard | None:
+    """A guard inside the statement: ``t if p > 0 else 0``, a comprehension filtered on
+    p > 0, ``where(p > 0, t, 0)``, ``nansum(t)``, ``nan_to_num(t)``."""
+    for child, parent in _ancestors(ctx, ctx.node):
+        if isinstance(parent, ast.IfExp):
+            t = guard_sign(ctx.ref(parent.test), x.p)
+            if (child is parent.body and t == "pos") or (child is parent.orelse and t == "neg"):
+                return Guard("branch", "conditional")
+        elif isinstance(parent, (ast.GeneratorExp, ast.ListComp, ast.SetComp, ast.DictComp)):
+            if any(guard_sign(ctx.ref(c), x.p) == "pos" for g in parent.generators for c in g.ifs):
+                return Guard("branch", "comprehension")
+        elif isinstance(parent, ast.Call):
+            oc = facts.op_of(ctx.ref(parent))
+            if oc is None:
+                continue
+            if oc.op == "where" and len(parent.args) == 3 and child in parent.args[1:]:
+                t = guard_sign(ctx.ref(parent.args[0]), x.p)
+                branch = 1 if child is parent.args[1] else 2
+                if (branch, t) in ((1, "pos"), (2, "neg")):
+                    return Guard("value", "where()", oc, parent, branch)
+            if oc.op == "nan_to_num" or (oc.op == "sum" and nan_aware(oc)):
+                return Guard("value", "nansum()" if oc.op == "sum" else "nan_to_num()", oc, parent)
+    return None
