@@ -5,6 +5,7 @@ standard input, ``--changed-since`` and ``--include-review``."""
 from __future__ import annotations
 
 import json
+import os
 import re
 import shutil
 import subprocess
@@ -144,6 +145,32 @@ def test_diff_applies_with_patch_p1(tmp_path, monkeypatch):
     done = subprocess.run(["patch", "-p1", "--forward", "--batch"], input=patch, cwd=tree, capture_output=True)
     assert done.returncode == 0, done.stdout + done.stderr
     assert {n: (tree / n).read_bytes() for n in PATCHED} == _expected_after_fix(tmp_path)
+
+
+HELPER = "import numpy as np\n\n\ndef soft(z):\n    e = np.exp(z - np.max(z))\n    return e / np.sum(e)\n"
+# Line 10's finding needs the helper of the other file; the import the fix inserts above
+# it moves it to line 11.
+USER = "import numpy as np\n\nfrom .helpers import soft\n\ny = frob(1)\n\n\ndef logp(x):\n    # log of a softmax\n    return np.log(soft(x))\n"
+
+
+def test_diff_reports_what_writing_leaves_including_cross_file_findings(tmp_path, monkeypatch, rules):
+    rules("frob-import", rewriting(lambda a: f"unfrob({a})", kind="review", with_import="from frobkit import unfrob"))
+    write(tmp_path, {"pkg/__init__.py": "", "pkg/helpers.py": HELPER, "pkg/main.py": USER})
+    monkeypatch.chdir(tmp_path)
+    # softmax-unshifted too: its trigger (exp) has the helper file analysed at all.
+    rules_ = ("--rule", "frob-import", "--rule", "log-of-softmax", "--rule", "softmax-unshifted")
+    args = ("--include-review", *rules_, "--jobs", "1", "--format", "json")
+    preview = run("fix", "--diff", *args, "--output", "left.json", "pkg")
+    written = run("fix", *args, "pkg")
+    assert preview.exit_code == written.exit_code == 1
+    assert "from frobkit import unfrob\n" in (tmp_path / "pkg" / "main.py").read_text()
+
+    def located(doc):
+        return [(f["path"], f["line"], f["column"], f["end_line"], f["end_column"], f["rule"]) for f in doc["findings"]]
+
+    after = located(json.loads(written.stdout))
+    assert after == [(os.path.join("pkg", "main.py"), 11, 12, 11, 27, "log-of-softmax")]
+    assert located(json.loads((tmp_path / "left.json").read_text())) == after
 
 
 # ---------------------------------------------------------------------------------------

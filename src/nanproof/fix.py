@@ -18,7 +18,7 @@ from .api import scan, scan_source, select_rules
 from .analyse import analyse_source
 from .config import Config
 from .edits import Text, Unsafe, apply, carry_lines, choose, forward, place
-from .model import Finding, Problem, ScanResult
+from .model import Finding, Problem, ScanResult, Span
 from .read import ReadError, Source, decode, encode, read_bytes
 from .registry import Rule
 from .verify import check_header, check_round
@@ -66,6 +66,7 @@ class Settled:
     fixed: tuple[Finding, ...]
     findings: tuple[Finding, ...]
     origin: tuple[int | None, ...]  # per line: the original line, or None if written by a fix
+    original: str = field(default="", repr=False)
 
 
 def fix_kinds(config: Config, include_review: bool) -> frozenset[str]:
@@ -202,7 +203,7 @@ def settle(source: Source, findings: list[Finding], rules: list[Rule], kinds, ne
         ours = {n + 1 for n, o in enumerate(origin) if o is None}
         todo = [f for f in result.findings if fixable(f, kinds) and (not near_fixes_only or not ours.isdisjoint(f.span.lines()))]
         if not todo:
-            return Settled(text.text, tuple(fixed), result.findings, tuple(origin))
+            return Settled(text.text, tuple(fixed), result.findings, tuple(origin), source.text)
     raise Unsafe(f"the rewrites did not settle after {MAX_ROUNDS} rounds (each round's result was flagged again)")
 
 
@@ -217,11 +218,12 @@ def _check_gone(chosen, placed, old: Text, new: Text, after: tuple[Finding, ...]
 
 
 def _left_in_memory(first: ScanResult, settled: dict[str, Settled], config: Config) -> ScanResult:
-    """What a diff would leave: the final analysis of each changed file (restricted to
-    the lines a fix wrote and the changed lines, with ``--changed-since``), and the scan's
-    findings elsewhere. Helpers defined in other files are not followed in changed files
-    (the analysis there runs file by file)."""
+    """What a diff would leave: the scan's findings in unchanged files; in a changed one,
+    its final analysis (restricted to the lines a fix wrote and the changed lines, with
+    ``--changed-since``) plus what only the scan's cross-file pass saw, on lines no fix
+    touched."""
     findings = [f for f in first.findings if f.path not in settled]
+    rules = select_rules(config)
     for path, done in settled.items():
         keep = done.findings
         if config.changed_since:
@@ -231,8 +233,25 @@ def _left_in_memory(first: ScanResult, settled: dict[str, Settled], config: Conf
             allowed = {n + 1 for n, o in enumerate(done.origin) if o is None or o in changed}
             keep = tuple(f for f in keep if not allowed.isdisjoint(f.span.lines()))
         findings.extend(keep)
+        findings.extend(_cross_file([f for f in first.findings if f.path == path], done, rules))
     findings.sort(key=Finding.sort_key)
     return replace(first, findings=tuple(findings))
+
+
+def _cross_file(scanned: list[Finding], done: Settled, rules: list[Rule]) -> list[Finding]:
+    """The scan's findings in a file that the file alone does not show (they follow a
+    helper defined in another scanned file), moved to their lines in the fixed text;
+    those on lines a fix rewrote are dropped with the code they were about."""
+    alone = {(f.rule, f.span) for f in analyse_source(done.original, scanned[0].path, rules).findings} if scanned else set()
+    new_line = {o: n + 1 for n, o in enumerate(done.origin) if o is not None}
+    out = []
+    for f in scanned:
+        s = f.span
+        lines = [new_line.get(n) for n in s.lines()]
+        if f in done.fixed or (f.rule, s) in alone or None in lines or lines != list(range(lines[0], lines[0] + len(lines))):
+            continue
+        out.append(replace(f, span=Span(lines[0], s.column, lines[-1], s.end_column)))
+    return out
 
 
 def _lines(text: str) -> tuple[str, ...]:
