@@ -74,6 +74,7 @@ def test_standard_input_is_fixed_to_standard_output(tmp_path):
     result = run("fix", "-", input=SOFTMAX)
     assert result.exit_code == 0
     assert result.stdout == FIXED_SOFTMAX and WARNING in result.stderr
+    assert "fixed standard input: 1 finding (softmax-unshifted 1)" in result.stderr
     unchanged = run("fix", "-", input=CLEAN)
     assert unchanged.exit_code == 0 and unchanged.stdout == CLEAN
     assert run("fix", "-", str(tmp_path)).exit_code == 2

@@ -123,7 +123,7 @@ def fix(paths, fmt, output, rules, skip, changed_since, jobs, config_file, inclu
     config = _config(paths, config_file, rules=rules, skip=skip, changed_since=changed_since, jobs=jobs, include_review=include_review)
     data = sys.stdin.buffer.read() if paths == ("-",) else None
     if data is not None:
-        result = fix_bytes(data, config, include_review)
+        result = fix_bytes(data, config, include_review, diff_only)
     else:
         result = _analysed(paths, changed_since, lambda update: fix_paths(list(paths), config, include_review, diff_only, update))
     _show_fix(result, fmt, output, diff_only, data)

@@ -51,7 +51,9 @@ class FileChange:
 class FixResult:
     changes: tuple[FileChange, ...]
     left: ScanResult  # what remains after the fixes (after the diff, with ``--diff``)
-    written: bool  # False for ``--diff``: nothing was written
+    # True when the fixes were applied (to the files, or to the copy of standard input
+    # printed); False for ``--diff``.
+    written: bool
 
     @property
     def exit_code(self) -> int:
@@ -108,27 +110,27 @@ def fix_paths(paths: list[str], config: Config = Config(), include_review: bool 
     return FixResult(tuple(changes), replace(left, problems=tuple(problems)), not diff_only)
 
 
-def fix_bytes(data: bytes, config: Config = Config(), include_review: bool = False, path: str = "-") -> FixResult:
+def fix_bytes(data: bytes, config: Config = Config(), include_review: bool = False, diff_only: bool = False, path: str = "-") -> FixResult:
     """Fix one file's bytes (standard input) in memory; ``changes`` holds the result
     when anything changed. Nothing is read from or written to disk."""
     try:
         source = decode(path, data)
     except ReadError as e:
-        return FixResult((), ScanResult(1, (), (Problem(path, str(e)),)), False)
+        return FixResult((), ScanResult(1, (), (Problem(path, str(e)),)), not diff_only)
     first = scan_source(source.text, path, config)
     if first.problem is not None:
-        return FixResult((), ScanResult(1, (), (first.problem,)), False)
+        return FixResult((), ScanResult(1, (), (first.problem,)), not diff_only)
     kinds = fix_kinds(config, include_review)
     findings = [f for f in first.findings if fixable(f, kinds)]
     if not findings:
-        return FixResult((), ScanResult(1, first.findings, ()), False)
+        return FixResult((), ScanResult(1, first.findings, ()), not diff_only)
     try:
         done, after = fix_source(source, findings, select_rules(config), kinds, False)
     except Unsafe as e:
         problem = Problem(path, f"not fixed, left unchanged: {e}")
-        return FixResult((), ScanResult(1, first.findings, (problem,)), False)
+        return FixResult((), ScanResult(1, first.findings, (problem,)), not diff_only)
     change = FileChange(path, data, after, done.fixed, _lines(done.text))
-    return FixResult((change,), ScanResult(1, done.findings, ()), False)
+    return FixResult((change,), ScanResult(1, done.findings, ()), not diff_only)
 
 
 def fix_file(path: str, findings: list[Finding], rules: list[Rule], kinds, config: Config, started: float, write: bool):

@@ -57,6 +57,7 @@ def summary(result: FixResult) -> str:
         rules = Counter(f.rule for f in change.fixed)
         what = ", ".join(f"{rule} {n}" for rule, n in sorted(rules.items()))
         count = len(change.fixed)
-        lines.append(f"{verb} {change.path}: {count} finding{'s' if count != 1 else ''} ({what})")
+        name = "standard input" if change.path == "-" else change.path
+        lines.append(f"{verb} {name}: {count} finding{'s' if count != 1 else ''} ({what})")
     lines.append(WARNING)
     return "\n".join(lines) + "\n"
