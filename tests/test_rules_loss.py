@@ -754,3 +754,13 @@ def test_guard_fix_is_a_review_and_drops_the_epsilon():
     assert "from line 5" in f.message
     (g,) = only(GUARDED["numpy_maximum_finfo_eps"], GUARD)
     assert g.fix is None and "log_softmax" in g.suggestion  # a hand-written producer: suggestion only
+
+
+def test_entropy_of_a_sigmoid_is_one_finding():
+    got = ids("""
+        import torch
+        def entropy(x):
+            s = torch.sigmoid(x)
+            return -(s * torch.log(s) + (1 - s) * torch.log(1 - s))
+    """)
+    assert got == [BCE]  # not also xlogx-nan twice: the log-sigmoid rewrite cures both terms

@@ -334,7 +334,8 @@ def _written_hit(ctx: Context, terms) -> Hit:
     fix="review",
     nodes=(ast.Call, ast.BinOp, ast.AugAssign),
     triggers=(r"log\s*\(", r"log1p\s*\(", r"binary_cross_?entropy\s*\(", r"BCELoss\s*\(", r"BinaryCrossentropy\s*\("),
-    overrides=("log-of-sigmoid", "log1p-manual", "log-epsilon-guard"),
+    # xlogx-nan: s * log(s) + (1 - s) * log(1 - s), the entropy of a sigmoid, is this pattern too
+    overrides=("log-of-sigmoid", "log1p-manual", "log-epsilon-guard", "xlogx-nan"),
 )
 def bce_from_sigmoid(ctx: Context):
     if not isinstance(ctx.node, ast.Call):
