@@ -131,3 +131,25 @@ def test_global_statement_at_module_level_does_not_loop():
 
 def test_exp_of_negated_uniform_draws_is_bounded():
     assert ids("import numpy as np\nrng = np.random.default_rng(0)\ny = np.random.rand(10)\nw = np.exp(-y)\np = w / w.sum()\nq = np.exp(-rng.random(5))\nr = q / q.sum()\n") == []
+
+
+def test_a_named_pipe_called_like_a_module_does_not_block_the_scan(tmp_path):
+    os.mkfifo(tmp_path / "pipe.py")
+    (tmp_path / "ok.py").write_text(UNSTABLE)
+    result = scan([str(tmp_path)], Config(jobs=1))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"]
+    explicit = scan([str(tmp_path / "pipe.py")], Config(jobs=1))
+    assert explicit.exit_code in (2, 3) or explicit.problems
+
+
+def test_library_scan_refuses_an_unknown_revision(tmp_path):
+    import subprocess
+
+    import pytest
+
+    from nanproof.config import ConfigError
+
+    subprocess.run(["git", "init", "-q", str(tmp_path)], check=True)
+    (tmp_path / "a.py").write_text("x = 1\n")
+    with pytest.raises(ConfigError):
+        scan([str(tmp_path)], Config(jobs=1, changed_since="no-such-revision"))

@@ -37,7 +37,7 @@ class Hit:
 
 @lru_cache(maxsize=64)
 def trigger_regex(triggers: tuple[str, ...]) -> re.Pattern:
-    return re.compile("|".join(rf"\b(?:{t})" for t in sorted(set(triggers))))
+    return re.compile(r"\b(?:" + "|".join(f"(?:{t})" for t in sorted(set(triggers))) + ")")
 
 
 def scope_for(node: ast.AST, parent: Scope) -> Scope:
@@ -59,6 +59,7 @@ class Analysis:
         self.project = project or {}
         self.module = Scope(tree, None)
         self.module.cache["analysis"] = self
+        self.module.cache["walrus"] = ":=" in text
         self.module.cache["scopes"] = {id(tree): self.module}
 
     # -- positions and text ------------------------------------------------------------

@@ -75,7 +75,13 @@ def project_table(results: Iterable[FileResult]) -> dict:
 
 
 def scan(paths: list[str], config: Config = Config(), progress: Progress | None = None) -> ScanResult:
-    """Discover, read and analyse PATHs; results sorted by path, line, column, rule."""
+    """Discover, read and analyse PATHs; results sorted by path, line, column, rule.
+    Raises ``gitdiff.GitError`` (a ConfigError) before any analysis when
+    ``config.changed_since`` names a revision git does not know."""
+    if config.changed_since:
+        from .gitdiff import check_revision
+
+        check_revision(paths or ["."], config.changed_since)
     files, problems = discover(paths or ["."], config.exclude)
     rule_ids = tuple(sorted(config.enabled()))
     jobs = config.jobs or os.cpu_count() or 1

@@ -78,13 +78,9 @@ def cli() -> None:
 
 def _analysed(paths, changed_since, run):
     """``run(progress)`` with a progress bar on a terminal; a REF that git does not know
-    fails before any analysis, even where nothing would be found."""
+    fails (in ``api.scan``) before any analysis, even where nothing would be found."""
     update, close = _progress()
     try:
-        if changed_since:
-            from .gitdiff import check_revision
-
-            check_revision(paths, changed_since)
         return run(update)
     except ConfigError as e:  # gitdiff.GitError: not a git repository, unknown REF
         raise click.UsageError(str(e)) from None

@@ -51,7 +51,9 @@ def discover(paths: list[str], exclude: tuple[str, ...] = ()) -> tuple[list[str]
             dirnames[:] = keep
             for f in sorted(filenames):
                 full = os.path.join(dirpath, f)
-                if f.endswith(SUFFIXES) and not _excluded(full, exclude):
+                # a named pipe or socket called x.py would block the reader forever; a
+                # broken link is kept so that it is reported
+                if f.endswith(SUFFIXES) and (os.path.isfile(full) or os.path.islink(full)) and not _excluded(full, exclude):
                     files.append(full)
     seen: set[str] = set()
     unique = [f for f in files if not (f in seen or seen.add(f))]

@@ -142,8 +142,9 @@ class Scope:
             add(Binding(stmt.name, _end(stmt), "class", stmt, stmt, path))
         elif isinstance(stmt, (ast.Global, ast.Nonlocal)):
             self._globals.update(stmt.names)
-        # Walrus targets anywhere in the statement's own expressions.
-        if not isinstance(stmt, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+        # Walrus targets anywhere in the statement's own expressions (a full walk, so only
+        # in files that contain ``:=`` at all).
+        if self.module.cache.get("walrus", True) and not isinstance(stmt, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
             for sub in _own_expressions(stmt):
                 for n in ast.walk(sub):
                     if isinstance(n, ast.NamedExpr) and isinstance(n.target, ast.Name):

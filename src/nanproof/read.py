@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import codecs
 import io
+import os
+import stat
 import sys
 import tokenize
 from dataclasses import dataclass
@@ -27,6 +29,11 @@ def read_bytes(path: str) -> bytes:
     if path == "-":
         return sys.stdin.buffer.read()
     try:
+        mode = os.stat(path).st_mode
+        if stat.S_ISDIR(mode):
+            raise ReadError("is a folder, not a file")
+        if not stat.S_ISREG(mode):
+            raise ReadError("not a regular file (a pipe, socket or device), skipped")
         with open(path, "rb") as fh:
             data = fh.read(MAX_BYTES + 1)
     except IsADirectoryError:
