@@ -261,6 +261,17 @@ def test_torch_bce_of_sigmoid_becomes_with_logits_and_keeps_its_gradient():
     np.testing.assert_allclose(fresh.grad.numpy(), scipy.special.expit(EXTREME_X) - EXTREME_T, rtol=1e-12)
 
 
+def torch_bce_pair(src, expect):
+    """Original and review-fixed ``bce(x, t)``; the fixed code contains ``expect`` and
+    agrees with the original on ordinary inputs."""
+    out = fixed(src, "bce-from-sigmoid", include_review=True)
+    assert expect in out
+    old, new = load(src, "bce"), load(out, "bce")
+    x, t = torch.tensor(ORDINARY), torch.tensor(TARGETS)
+    torch.testing.assert_close(new(x, t), old(x, t))
+    return old, new
+
+
 @needs_torch
 def test_bce_loss_module_inline_becomes_bce_with_logits_loss():
     src = """
@@ -269,11 +280,7 @@ def test_bce_loss_module_inline_becomes_bce_with_logits_loss():
         def bce(x, t):
             return nn.BCELoss(reduction="sum")(torch.sigmoid(x), t)
     """
-    out = fixed(src, "bce-from-sigmoid", include_review=True)
-    assert 'nn.BCEWithLogitsLoss(reduction="sum")(x, t)' in out
-    old, new = load(src, "bce"), load(out, "bce")
-    x, t = torch.tensor(ORDINARY), torch.tensor(TARGETS)
-    torch.testing.assert_close(new(x, t), old(x, t))
+    old, new = torch_bce_pair(src, 'nn.BCEWithLogitsLoss(reduction="sum")(x, t)')
     xe, te = torch.tensor(EXTREME_X), torch.tensor(EXTREME_T)
     # x = 40 with t = 0: 1 - sigmoid(40) rounds to 0 and the clamped log reads 100 (true: 40)
     assert old(xe, te).item() == pytest.approx(100 + EXTREME_REF[1] + EXTREME_REF[2], rel=1e-12)
@@ -288,11 +295,7 @@ def test_from_imported_bce_gets_the_with_logits_import():
         def bce(x, t):
             return binary_cross_entropy(torch.sigmoid(x), t)
     """
-    out = fixed(src, "bce-from-sigmoid", include_review=True)
-    assert "from torch.nn.functional import binary_cross_entropy_with_logits\n" in out
-    old, new = load(src, "bce"), load(out, "bce")
-    x, t = torch.tensor(ORDINARY), torch.tensor(TARGETS)
-    torch.testing.assert_close(new(x, t), old(x, t))
+    old, new = torch_bce_pair(src, "from torch.nn.functional import binary_cross_entropy_with_logits\n")
     xe, te = torch.tensor(EXTREME_X), torch.tensor(EXTREME_T)
     assert new(xe, te).item() == pytest.approx(EXTREME_REF.mean(), rel=1e-15)  # reference: mpmath
 
