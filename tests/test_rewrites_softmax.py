@@ -271,3 +271,15 @@ def test_picked_probabilities_rewrite_keeps_the_label_indexing():
     assert torch.isinf(old(far, label))
     # reference: torch.nn.functional.cross_entropy on the logits
     torch.testing.assert_close(new(far, label), torch.nn.functional.cross_entropy(far, label))
+
+
+def test_jacobian_message_figures_are_the_float64_limits():
+    (f,) = [f for f in __import__("conftest").findings(JAC_SRC) if f.rule == "softmax-jacobian-dense"]
+    fi = np.finfo(np.float64)  # IEEE 754 binary64 via numpy.finfo
+    # a product of two values below sqrt(smallest normal) is subnormal (fewer digits) ...
+    assert f"{np.sqrt(fi.tiny):.1e}" == "1.5e-154" and "1.5e-154" in f.message
+    # ... and below sqrt(smallest subnormal) it rounds to zero
+    assert f"{np.sqrt(fi.smallest_subnormal):.1e}" == "2.2e-162" and "2.2e-162" in f.message
+    y = np.array([1e-163, 1e-163])
+    assert np.outer(y, y)[0, 1] == 0.0
+    assert "128 MiB" in f.message and 4096 * 4096 * 8 == 128 * 2**20
