@@ -502,3 +502,13 @@ def test_flags_element_loop_with_diagonal_branch():
 ])
 def test_ignores_element_loops_that_are_not_a_softmax_jacobian(src):
     assert "softmax-jacobian-dense" not in ids(src)
+
+
+def test_adding_an_unseen_value_is_not_a_shift():
+    src = """
+        import numpy as np
+        def mixture_loglik(log_weights, component_logdens):
+            joint = log_weights + component_logdens
+            return np.log(np.sum(np.exp(joint), axis=1))
+    """
+    assert ids(src) == ["logsumexp-unshifted"]

@@ -391,8 +391,8 @@ def shifted_by_unknown(ref: Ref) -> bool:
     node = ref.node
     if isinstance(node, ast.BinOp) and isinstance(node.op, (ast.Div, ast.Mult)):
         return shifted_by_unknown(ref.child(node.left))
-    if not (isinstance(node, ast.BinOp) and isinstance(node.op, (ast.Sub, ast.Add))):
-        return False
+    if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Sub)):
+        return False  # adding an unseen value (log-weights, a bias) is not a shift
     r = strip(ref.child(node.right))
     if isinstance(r.node, ast.Constant) or _const(r.node) is not None:
         return False
