@@ -237,6 +237,26 @@ def test_kl_divergence_becomes_rel_entr(kl):
     np.testing.assert_allclose(new(P_ZERO, Q), scipy.special.rel_entr(P_ZERO, Q).sum(-1), rtol=1e-15)  # reference: rel_entr
 
 
+def test_binary_entropy_term_through_xlog1py_is_zero_at_one_and_accurate_near_zero():
+    src = """
+        import numpy as np
+        import scipy.special
+        def term(q):
+            return (1 - q) * np.log(1 - q)
+    """
+    old, new = both(src, "xlogx-nan", "term")
+    q = np.array([1.0, 1e-17, 1e-9, 0.3, 0.999])
+    with np.errstate(all="ignore"):
+        bad = old(q)
+    got = new(q)
+    assert np.isnan(bad[0]) and bad[1] == 0.0  # 1 - 1e-17 rounds to 1
+    assert got[0] == 0.0 and scipy.special.xlog1py(0.0, -1.0) == 0.0  # reference: scipy.special.xlog1py
+    for i in range(1, len(q)):
+        exact = (1 - mpmath.mpf(float(q[i]))) * mpmath.log1p(-mpmath.mpf(float(q[i])))  # reference: mpmath, 50 digits
+        assert ulp_error(got[i], exact) <= 2, (q[i], got[i])
+    assert ulp_error(bad[2], (1 - mpmath.mpf(1e-9)) * mpmath.log1p(-mpmath.mpf(1e-9))) > 1e6
+
+
 def test_math_entropy_no_longer_raises_at_zero():
     src = """
         import math

@@ -399,6 +399,18 @@ def test_binary_entropy_is_two_terms_each_flagged():
     assert ids(XLOGX["binary_entropy_term"]).count("xlogx-nan") == 2
 
 
+def test_one_minus_q_term_is_fixed_with_xlog1py_whichever_fix_lands_first():
+    # log1p-manual also reports np.log(1 - q): a second defect (digits of small q lost).
+    # xlog1py fixes both; after the log1p fix alone the term is still found.
+    f = [f for f in findings(XLOGX["binary_entropy_term"]) if f.rule == "xlogx-nan"][1]
+    assert {e.text for e in f.fix.edits} == {"xlog1py(1 - q, -q)", "from scipy.special import xlog1py\n"}
+    after_log1p = "import numpy as np\nimport scipy.special\ndef h(q):\n    return -(1 - q) * np.log1p(-q)\n"
+    (g,) = findings(after_log1p)
+    assert g.rule == "xlogx-nan" and [e.text for e in g.fix.edits] == ["-scipy.special.xlog1py(1 - q, -q)"]
+    torch_src = "import torch\ndef h(q):\n    return ((1 - q) * torch.log(1 - q)).sum()\n"
+    assert [e.text for e in only(torch_src, "xlogx-nan").fix.edits] == ["torch.special.xlog1py(1 - q, -q)"]
+
+
 def test_entropy_of_softmax_is_one_xlogx_finding_fixed_through_log_softmax():
     # One finding per problem: not log-of-softmax on the log, not cross-entropy-from-probs.
     got = findings(XLOGX["softmax_probabilities"])

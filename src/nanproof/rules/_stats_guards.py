@@ -59,6 +59,31 @@ class XLogX:
     oc: OpCall  # its operation
     q: Ref | None  # the q of p * log(p / q) or p * (log(p) - log(q))
     negated: bool  # an odd number of unary minus signs on the factors
+    one_plus: tuple[Ref, bool] | None = None  # (y, minus) when p is 1 - y or 1 + y
+
+
+def one_plus(p: Ref) -> tuple[Ref, bool] | None:
+    """(y, True) for ``1 - y``, (y, False) for ``1 + y`` / ``y + 1``."""
+    s = facts.strip(p)
+    n = s.node
+    if isinstance(n, ast.BinOp) and isinstance(n.op, (ast.Add, ast.Sub)):
+        if facts._const(n.left) == 1:
+            return s.child(n.right), isinstance(n.op, ast.Sub)
+        if isinstance(n.op, ast.Add) and facts._const(n.right) == 1:
+            return s.child(n.left), False
+    return None
+
+
+def _is_log1p_of(p: Ref, u: Ref) -> bool:
+    """log1p(u) is log(p): ``(1 - q) * log1p(-q)``, ``(1 + u) * log1p(u)``."""
+    got = one_plus(p)
+    if got is None:
+        return False
+    y, minus = got
+    if not minus:
+        return facts.same(u, y)
+    us = facts.strip(u)
+    return isinstance(us.node, ast.UnaryOp) and isinstance(us.node.op, ast.USub) and facts.same(us.child(us.node.operand), y)
 
 
 def _unsign(ref: Ref) -> tuple[Ref, bool]:
@@ -71,7 +96,7 @@ def _unsign(ref: Ref) -> tuple[Ref, bool]:
 def _log_call(ref: Ref) -> tuple[Ref, OpCall, Ref] | None:
     s = facts.strip(ref)
     oc = facts.op_of(s)
-    if oc is None or oc.op not in _LOGS or oc.subject is None or (not oc.is_method and len(oc.call.args) != 1):
+    if oc is None or oc.op not in (*_LOGS, "log1p") or oc.subject is None or (not oc.is_method and len(oc.call.args) != 1):
         return None
     return s, oc, s.child(oc.subject)
 
@@ -80,6 +105,8 @@ def _log_term(p: Ref, other: Ref) -> tuple[Ref, OpCall, Ref | None] | None:
     got = _log_call(other)
     if got is not None:
         log, oc, arg = got
+        if oc.op == "log1p":
+            return (log, oc, None) if _is_log1p_of(p, arg) else None
         if facts.same(p, arg):
             return log, oc, None
         a = facts.strip(arg)
@@ -89,19 +116,20 @@ def _log_term(p: Ref, other: Ref) -> tuple[Ref, OpCall, Ref | None] | None:
     d = facts.strip(other)
     if isinstance(d.node, ast.BinOp) and isinstance(d.node.op, ast.Sub):
         first, second = _log_call(d.child(d.node.left)), _log_call(d.child(d.node.right))
-        if first and second and first[1].op == second[1].op and facts.same(p, first[2]):
+        if first and second and first[1].op == second[1].op != "log1p" and facts.same(p, first[2]):
             return first[0], first[1], second[2]
     return None
 
 
 def xlogx_parts(ctx: Context, node: ast.BinOp) -> XLogX | None:
-    """``p * log(p)``, ``p * log(p / q)``, ``p * (log(p) - log(q))`` in either order."""
+    """``p * log(p)``, ``p * log(p / q)``, ``p * (log(p) - log(q))`` in either order;
+    ``(1 - q) * log1p(-q)`` counts as ``p * log(p)``."""
     for a, b in ((node.left, node.right), (node.right, node.left)):
         p, neg_p = _unsign(ctx.ref(a))
         other, neg_l = _unsign(ctx.ref(b))
         got = _log_term(p, other)
         if got is not None:
-            return XLogX(p, got[0], got[1], got[2], neg_p != neg_l)
+            return XLogX(p, got[0], got[1], got[2], neg_p != neg_l, one_plus(p) if got[2] is None else None)
     return None
 
 

@@ -199,7 +199,7 @@ def _xlogx_fix(ctx: Context, x: XLogX, guard):
             kind = "auto" if origin.how == "framework" and not got[1] else "review"
             return ctx.fix(kind, [ctx.edit(x.log.node, got[0]), *got[1]]), None
     hint = "xlogy(p, p) / rel_entr(p, q) (scipy.special, torch.xlogy, jax.scipy.special), or scipy.special.entr(p) = -p * log(p)"
-    if x.oc.op != "log":
+    if x.oc.op not in ("log", "log1p"):
         return None, hint.replace("xlogy(p, p)", f"xlogy(p, p) / log({x.oc.op[3:]})")
     if not simple(x.p.node) or (x.q is not None and not _names_stable(ctx, x.q.node, x.q)):
         return None, hint
@@ -225,6 +225,8 @@ def _xlogy_text(ctx: Context, x: XLogX):
     oc = x.oc
     if oc.framework == "math":  # keep the scalar and its type; only p = 0 changes
         return "review", f"({ctx.text(ctx.node)} if {p} != 0 else 0.0)", [], False
+    if x.one_plus is not None:
+        return _xlog1py_text(ctx, x, p)
     if oc.framework in ("torch", "method", "tf"):
         if oc.framework == "tf":
             tf = module_alias(ctx.ref(), "tensorflow")
@@ -243,6 +245,24 @@ def _xlogy_text(ctx: Context, x: XLogX):
             return None
         args = f"{p}, {p}" if q is None else f"{p}, {q}"
         return ("review" if got[1] else "auto"), f"{got[0]}({args})", got[1], False
+    return None
+
+
+def _xlog1py_text(ctx: Context, x: XLogX, p: str):
+    """``(1 - q) * log(1 - q)`` -> ``xlog1py(1 - q, -q)``: zero at q = 1 and, through
+    log1p, accurate for small q (what log1p-manual asks of the log alone)."""
+    y, minus = x.one_plus
+    if not _names_stable(ctx, y.node, y):
+        return None
+    u = f"-{paren(ctx.text(y.node), y.node)}" if minus else ctx.text(y.node)
+    fw = x.oc.framework
+    if fw in ("torch", "method", "tf"):
+        alias = module_alias(ctx.ref(), "tensorflow" if fw == "tf" else "torch")
+        call = f"{alias}.math.xlog1py" if fw == "tf" else f"{alias}.special.xlog1py"
+        return ("auto", f"{call}({p}, {u})", [], False) if alias else None
+    if fw in ("numpy", "jax") and not (x.oc.qual or "").startswith("cupy"):
+        got = function_text(ctx, "jax.scipy.special" if fw == "jax" else "scipy.special", "xlog1py")
+        return (("review" if got[1] else "auto"), f"{got[0]}({p}, {u})", got[1], False) if got else None
     return None
 
 
