@@ -893,3 +893,54 @@ def test_ignores_round_trip_look_alikes_and_constants():
             scaled = np.log(np.exp(x) * 2)
             return geometric_mean, scaled, math.log(math.exp(2.0))
     """) == []
+
+
+def test_softplus_inside_a_lambda_is_analysed_without_error():
+    assert ours("""
+        import numpy as np
+        softplus = lambda x: np.log(1 + np.exp(x))
+        gate = lambda z: 1 / (1 + np.exp(-z))
+    """) == ["softplus-manual", "sigmoid-manual"]
+
+
+def test_log1p_fix_is_review_when_the_sum_is_also_used_elsewhere():
+    (f,) = only("""
+        import numpy as np
+        def f(x):
+            y = 1 + x
+            return np.log(y), y ** 2
+    """, "log1p-manual")
+    assert (f.fix.kind, f.fix.replacement) == ("review", "np.log1p(x)")
+
+
+def test_ignores_exp_of_a_named_constant_expression():
+    assert ours("""
+        import numpy as np
+        def f():
+            return (np.exp(np.pi / 2) - 1) / 2
+    """) == []
+
+
+def test_ignores_softplus_of_a_difference_that_cannot_be_positive():
+    assert ours("""
+        import numpy as np
+        import torch
+        def lae(a, b):
+            hi, lo = np.maximum(a, b), np.minimum(a, b)
+            return hi + np.log1p(np.exp(lo - hi))
+        def lae_where(a, b):
+            mask = a >= b
+            max_ = torch.where(mask, a, b)
+            min_ = torch.where(mask, b, a)
+            return max_ + torch.log1p(torch.exp(min_ - max_))
+        def shifted(x):
+            return np.log1p(np.exp(x - np.maximum(x, 0)))
+    """) == []
+
+
+def test_a_where_threshold_without_a_literal_still_guards_numpy_values():
+    assert ours("""
+        import numpy as np
+        def softplus(x, threshold):
+            return np.where(x > threshold, x, np.log1p(np.exp(x)))
+    """) == []

@@ -8,6 +8,8 @@ Rules ask these questions to stay quiet where a textbook pattern does no harm:
 from __future__ import annotations
 
 import ast
+import math
+import operator
 
 from .facts import MAX_DEPTH, _const, binding_of, bounded_above, nonneg, op, same, strip
 from .flow import AMBIGUOUS, Ref, statements_with_paths
@@ -126,9 +128,31 @@ def integral(ref: Ref, depth: int = 0) -> bool:
     return False
 
 
-def constant(ref: Ref) -> float | None:
-    """The value of a number literal, directly or through a name assigned once."""
-    return _const(strip(ref).node)
+_NAMED_CONSTANTS = {"math.pi": math.pi, "math.e": math.e, "math.tau": math.tau, "numpy.pi": math.pi, "numpy.e": math.e, "torch.pi": math.pi}
+_ARITHMETIC = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul, ast.Div: operator.truediv, ast.Pow: operator.pow}
+
+
+def constant(ref: Ref, depth: int = 0) -> float | None:
+    """The value of a constant expression: number literals, ``math.pi`` / ``np.e``, and
+    arithmetic of them, directly or through names assigned once."""
+    ref = strip(ref)
+    node = ref.node
+    c = _const(node)
+    if c is not None or depth > MAX_DEPTH:
+        return c
+    if isinstance(node, (ast.Name, ast.Attribute)):
+        return _NAMED_CONSTANTS.get(_qual(ref, node) or "")
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
+        v = constant(ref.child(node.operand), depth + 1)
+        return None if v is None else (-v if isinstance(node.op, ast.USub) else v)
+    if isinstance(node, ast.BinOp) and type(node.op) in _ARITHMETIC:
+        a, b = constant(ref.child(node.left), depth + 1), constant(ref.child(node.right), depth + 1)
+        try:
+            v = _ARITHMETIC[type(node.op)](a, b) if a is not None and b is not None else None
+        except (ArithmeticError, ValueError):
+            return None
+        return v if isinstance(v, (int, float)) else None
+    return None
 
 
 def harmless_term(ref: Ref) -> bool:
@@ -168,15 +192,18 @@ def _cmp_bounds(cond: Ref, truth: bool, target: Ref, depth: int = 0) -> list[tup
     if not (isinstance(node, ast.Compare) and len(node.ops) == 1):
         return []
     left, cmp, right = node.left, node.ops[0], node.comparators[0]
-    if _const(right) is not None and same(cond.child(left), target):
-        c, above = _const(right), isinstance(cmp, (ast.Gt, ast.GtE))
-    elif _const(left) is not None and same(cond.child(right), target):
-        c, above = _const(left), isinstance(cmp, (ast.Lt, ast.LtE))
-    else:
-        return []
     if not isinstance(cmp, (ast.Gt, ast.GtE, ast.Lt, ast.LtE)):
         return []
-    return [("lo" if above == truth else "hi", c)]
+    if same(cond.child(left), target):
+        other, above = right, isinstance(cmp, (ast.Gt, ast.GtE))
+    elif same(cond.child(right), target):
+        other, above = left, isinstance(cmp, (ast.Lt, ast.LtE))
+    else:
+        return []
+    # A threshold the source does not spell out (``x > threshold``) is still a guard
+    # the author wrote on purpose: it counts as a bound of 0.
+    c = constant(cond.child(other))
+    return [("lo" if above == truth else "hi", 0.0 if c is None else c)]
 
 
 def conditions(at: Ref, stmt: ast.stmt, lazy_only: bool) -> list[tuple[Ref, bool]]:
@@ -212,12 +239,14 @@ def conditions(at: Ref, stmt: ast.stmt, lazy_only: bool) -> list[tuple[Ref, bool
 
 
 def _block_of(parent: ast.AST | None, block: int) -> list:
+    """The statement list numbered ``block`` (as in ``flow`` paths) of ``parent``; empty
+    for a lambda, whose body is an expression."""
     if parent is None:
         return []
     if block >= 10:
         return parent.cases[block - 10].body
-    fields = ("body", "orelse", "finalbody", "handlers")
-    return getattr(parent, fields[block], None) or []
+    found = getattr(parent, ("body", "orelse", "finalbody", "handlers")[block], None)
+    return found if isinstance(found, list) else []
 
 
 def _exits(body: list) -> bool:
@@ -246,6 +275,8 @@ def _bound(ref: Ref, side: str, conds: list[tuple[Ref, bool]], depth: int = 0) -
         found.extend(c for s, c in _cmp_bounds(ref.child(node.slice), True, ref.child(node.value)) if s == side)
     if side == "lo" and nonneg(ref):
         found.append(0.0)
+    if side == "hi" and isinstance(node, ast.BinOp) and isinstance(node.op, ast.Sub) and _ordered(ref.child(node.left), ref.child(node.right)):
+        found.append(0.0)
     if (oc := op(ref, "clip")) is not None:
         c = _const_or_none(_clip_bound(oc, side))
         if c is not None:
@@ -253,6 +284,38 @@ def _bound(ref: Ref, side: str, conds: list[tuple[Ref, bool]], depth: int = 0) -
     if not found:
         return None
     return max(found) if side == "lo" else min(found)
+
+
+def _pair(ref: Ref, *ops: str) -> list[Ref] | None:
+    """The arguments of an elementwise ``maximum(a, b)`` / ``max(a, b)`` (``ops``) or of
+    ``where(c, a, b)``."""
+    oc = op(ref, *ops)
+    if oc is None or oc.is_method or len(oc.call.args) < 2 or oc.call.keywords:
+        return None
+    if oc.op in ("max", "min") and oc.framework != "builtins":
+        return None  # np.max(a, 1) reduces along an axis
+    return [ref.child(a) for a in oc.call.args]
+
+
+def _ordered(small: Ref, big: Ref) -> bool:
+    """``small <= big`` by construction: ``a - maximum(a, b)``, ``minimum(a, b) -
+    maximum(a, b)``, ``where(a >= b, b, a) - where(a >= b, a, b)``."""
+    bigs = _pair(big, "maximum", "max")
+    if bigs is not None:
+        smalls = _pair(small, "minimum", "min") or [small]
+        return all(any(same(s, b) for b in bigs) for s in smalls)
+    w_small, w_big = op(small, "where"), op(big, "where")
+    if w_small is None or w_big is None or len(w_small.call.args) != 3 or len(w_big.call.args) != 3:
+        return False
+    c, hi, lo = (big.child(a) for a in w_big.call.args)
+    c2, lo2, hi2 = (small.child(a) for a in w_small.call.args)
+    cond = strip(c).node
+    if not (same(c, c2) and same(hi, hi2) and same(lo, lo2) and isinstance(cond, ast.Compare) and len(cond.ops) == 1):
+        return False
+    left, right = strip(c).child(cond.left), strip(c).child(cond.comparators[0])
+    if isinstance(cond.ops[0], (ast.Gt, ast.GtE)):
+        return same(left, hi) and same(right, lo)
+    return isinstance(cond.ops[0], (ast.Lt, ast.LtE)) and same(left, lo) and same(right, hi)
 
 
 def _clip_bound(oc, side: str) -> ast.expr | None:

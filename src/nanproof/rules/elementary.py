@@ -16,7 +16,7 @@ from ..flow import Ref
 from ..names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import import_edit, paren, reachable, simple
-from .softmax import OVERFLOW, _lines, _names_stable
+from .softmax import OVERFLOW, _lines, _names_stable, used_elsewhere
 
 # Half an ulp of 1.0 (numpy.finfo(t).eps / 2, IEEE 754): the digits of x below it are
 # rounded away in 1 + x.
@@ -149,7 +149,9 @@ def _log1p_fix(ctx: Context, oc: OpCall, arg: Ref, x: Ref, negated: bool):
     got = _sibling(ctx, oc, "log1p")
     if got is None:
         return None
-    return _fix(ctx, [ctx.edit(oc.call.func, got[0]), ctx.edit(arg.node, text)], got[1])
+    # ``y = 1 + x`` also used elsewhere: those uses keep the rounded sum, this one not
+    kind = "review" if isinstance(arg.node, ast.Name) and used_elsewhere(arg, ctx.node) else "auto"
+    return _fix(ctx, [ctx.edit(oc.call.func, got[0]), ctx.edit(arg.node, text)], got[1], kind)
 
 
 @rule(
