@@ -143,15 +143,13 @@ def _log1p_fix(ctx: Context, oc: OpCall, arg: Ref, x: Ref, negated: bool):
     text = ctx.text(x.node)
     if negated:
         text = f"-{paren(text, x.node)}"
-    if oc.is_method:
-        recv = f"({text})" if negated else paren(text, x.node)
-        return ctx.fix("auto", [ctx.edit(oc.call, f"{recv}.log1p{ctx.text(oc.call)[len(ctx.text(oc.call.func)):]}")])
-    got = _sibling(ctx, oc, "log1p")
-    if got is None:
-        return None
     # ``y = 1 + x`` also used elsewhere: those uses keep the rounded sum, this one not
     kind = "review" if isinstance(arg.node, ast.Name) and used_elsewhere(arg, ctx.node) else "auto"
-    return _fix(ctx, [ctx.edit(oc.call.func, got[0]), ctx.edit(arg.node, text)], got[1], kind)
+    if oc.is_method:
+        recv = f"({text})" if negated else paren(text, x.node)
+        return ctx.fix(kind, [ctx.edit(oc.call, f"{recv}.log1p{ctx.text(oc.call)[len(ctx.text(oc.call.func)):]}")])
+    got = _sibling(ctx, oc, "log1p")
+    return _fix(ctx, [ctx.edit(oc.call.func, got[0]), ctx.edit(arg.node, text)], got[1], kind) if got else None
 
 
 @rule(
