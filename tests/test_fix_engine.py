@@ -116,6 +116,11 @@ def _editing(edit_of):
     return check
 
 
+def _overlapping(ctx):
+    """Two edits of one fix: the whole call, and its argument inside it."""
+    yield Hit(ctx.node, "frob", ctx.fix("auto", [ctx.edit(ctx.node, "unfrob(y)"), ctx.edit(ctx.node.args[0], "z")]))
+
+
 REFUSALS = [
     # (test double, source, what the problem says)
     (rewriting(lambda a: f"unfrob({a}"), b"y = frob(x)\n", "is not an expression"),
@@ -128,13 +133,14 @@ REFUSALS = [
     (rewriting(lambda a: f"wrap(frob({a}))"), b"y = frob(x)\n", f"did not settle after {MAX_ROUNDS} rounds"),
     (_editing(_half_span), b"y = frob(x) + 1\n", "does not cover exactly one expression"),
     (_editing(_its_line), b"v = [\n    frob(x),\n    2,\n]\n", "would change code outside the edited expressions"),
+    (lambda ctx: _overlapping(ctx) if frob_call(ctx.node) else (), b"y = frob(x)\n", "two edits overlap"),
 ]
 
 
 @pytest.mark.parametrize(
     "check, source, reason",
     REFUSALS,
-    ids=["not-an-expression", "does-not-compile", "needs-parentheses", "still-flagged", "never-settles", "half-span", "line-cut"],
+    ids=["not-an-expression", "does-not-compile", "needs-parentheses", "still-flagged", "never-settles", "half-span", "line-cut", "overlap"],
 )
 def test_unsafe_rewrite_leaves_the_file_untouched_with_a_problem(tmp_path, rules, check, source, reason):
     config = rules("frob-double", check)

@@ -6,6 +6,9 @@ A finding's fix is a list of edits of three shapes:
 - an insertion of whole lines at column 1 (an import, from ``rewrite.import_edit``);
 - a deletion of whole lines (column 1 of line L to column 1 of line L2, empty text).
 
+(Text inserted inside a line, such as a keyword argument, is folded into a replacement
+of the finding's expression: ``edits_of``.)
+
 Expressions are replaced through libcst, which finds the node whose range is the span
 and replaces only that node, keeping the parentheses around it; every other byte of the
 module comes back from libcst's own round trip. Whole-line edits are spliced as text:
@@ -154,6 +157,9 @@ def place(text: Text, edit_lists: Iterable[tuple[Edit, ...]], newline: str) -> l
             raise Unsafe(f"an edit at line {e.span.line} ends before it starts")
         placed.append(Placed(start, end, body, not whole_lines(e), e.span))
     placed.sort(key=lambda p: (p.start, p.end))
+    for a, b in zip(placed, placed[1:]):
+        if b.start < a.end or (a.start == a.end == b.start == b.end and a.expression):
+            raise Unsafe(f"two edits overlap at line {b.span.line}")
     # New regions: each edit moves by what the edits before it added or removed.
     out, delta = [], 0
     for p in placed:
