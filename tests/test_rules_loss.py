@@ -764,3 +764,30 @@ def test_entropy_of_a_sigmoid_is_one_finding():
             return -(s * torch.log(s) + (1 - s) * torch.log(1 - s))
     """)
     assert got == [BCE]  # not also xlogx-nan twice: the log-sigmoid rewrite cures both terms
+
+
+def test_sigmoid_helper_imported_from_another_scanned_module_is_followed(tmp_path):
+    import os
+
+    from nanproof.api import scan
+    from nanproof.config import Config
+
+    pkg = tmp_path / "model"
+    pkg.mkdir()
+    (pkg / "__init__.py").write_text("")
+    (pkg / "acts.py").write_text("import numpy as np\ndef squash(z):\n    return 1 / (1 + np.exp(-z))\n")
+    (pkg / "train.py").write_text(
+        "import numpy as np\nfrom .acts import squash\n"
+        "def loss(z, y):\n    p = squash(z)\n    return -np.mean(y * np.log(p + 1e-9) + (1 - y) * np.log(1 - p + 1e-9))\n"
+        "def score(z):\n    return np.log(squash(z) + 1e-9)\n"
+    )
+    result = scan([str(tmp_path)], Config(jobs=1))
+    got = sorted((os.path.basename(f.path), f.rule) for f in result.findings if f.rule in (BCE, LOS, GUARD))
+    assert got == [("train.py", BCE), ("train.py", GUARD)]
+
+
+def test_rules_are_listed_with_family_severity_and_fix_kind():
+    from nanproof.registry import get
+
+    assert [(get(r).family, get(r).severity, get(r).fix) for r in (BCE, LOS, GUARD)] == [
+        ("loss", "error", "review"), ("loss", "error", "auto"), ("loss", "warning", "review")]

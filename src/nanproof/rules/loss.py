@@ -129,6 +129,24 @@ def _from_logits_off(call: ast.Call, pos: int) -> bool:
     return v is None or (isinstance(v, ast.Constant) and v.value is False)
 
 
+def _ctor_style(ref: Ref) -> str | None:
+    """The style of a probability loss object built at ``ref`` (``nn.BCELoss()``,
+    ``BinaryCrossentropy()`` without from_logits), else None."""
+    node = ref.node
+    if not isinstance(node, ast.Call):
+        return None
+    style = _BCE_CLASSES.get(_qual(ref.child(node.func)) or "")
+    return None if style == "keras" and not _from_logits_off(node, 0) else style
+
+
+def _mentions_bce(ctx: Context) -> bool:
+    """The file names a binary cross-entropy loss at all (cheap, once per file)."""
+    cache = ctx.analysis.module.cache
+    if "mentions_bce" not in cache:
+        cache["mentions_bce"] = any(w in ctx.analysis.text for w in ("binary_cross", "BCELoss", "BinaryCrossentropy"))
+    return cache["mentions_bce"]
+
+
 @dataclass(frozen=True)
 class BCECall:
     style: str  # torch | keras
@@ -149,10 +167,8 @@ def bce_call(ref: Ref) -> BCECall | None:
     if isinstance(ctor.node, ast.Attribute):
         v = facts.self_attribute(ctor)
         ctor = facts.strip(v) if v is not None else ctor
-    if not isinstance(ctor.node, ast.Call):
-        return None
-    style = _BCE_CLASSES.get(_qual(ctor.child(ctor.node.func)) or "")
-    if style is None or (style == "keras" and not _from_logits_off(ctor.node, 0)):
+    style = _ctor_style(ctor)
+    if style is None:
         return None
     prob = _passed(call, 0, "input") if style == "torch" else _passed(call, 1, "y_pred")
     return BCECall(style, prob, ctor) if prob is not None else None
@@ -343,7 +359,9 @@ def bce_from_sigmoid(ctx: Context):
         if terms is not None:
             yield _written_hit(ctx, terms)
         return
-    for site in (ctx, *_criterion_uses(ctx)):
+    if not _mentions_bce(ctx):
+        return
+    for site in (ctx, *(_criterion_uses(ctx) if _ctor_style(ctx.ref()) else ())):
         api = bce_call(site.ref())
         hit = _api_hit(site, api) if api is not None else None
         if hit is not None:
