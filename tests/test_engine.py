@@ -153,3 +153,23 @@ def test_library_scan_refuses_an_unknown_revision(tmp_path):
     (tmp_path / "a.py").write_text("x = 1\n")
     with pytest.raises(ConfigError):
         scan([str(tmp_path)], Config(jobs=1, changed_since="no-such-revision"))
+
+
+def test_old_mac_line_endings_are_numbered_like_python_does():
+    (f,) = findings(UNSTABLE.replace("\n", "\r"))
+    assert f.rule == "softmax-unshifted" and f.span.line == 3
+
+
+def test_a_helper_is_followed_across_files_whatever_rules_are_selected(tmp_path):
+    (tmp_path / "helpers.py").write_text("import numpy as np\ndef soft(z):\n    e = np.exp(z - z.max())\n    return e / e.sum()\n")
+    (tmp_path / "use.py").write_text("import numpy as np\nfrom helpers import soft\ndef f(z):\n    return np.log(soft(z))\n")
+    result = scan([str(tmp_path)], Config(jobs=1, rules=frozenset({"log-of-softmax"})))
+    assert [(os.path.basename(f.path), f.rule) for f in result.findings] == [("use.py", "log-of-softmax")]
+
+
+def test_an_added_import_goes_below_a_shebang_and_coding_line():
+    from nanproof.analyse import parse
+    from nanproof.rewrite import import_edit
+
+    tree = parse("m.py", "#!/usr/bin/env python\n# -*- coding: utf-8 -*-\n\nx = 1\n")
+    assert import_edit(tree, "import numpy as np").span.line == 4

@@ -283,3 +283,17 @@ def test_jacobian_message_figures_are_the_float64_limits():
     y = np.array([1e-163, 1e-163])
     assert np.outer(y, y)[0, 1] == 0.0
     assert "128 MiB" in f.message and 4096 * 4096 * 8 == 128 * 2**20
+
+
+def test_logsumexp_of_builtin_sum_keeps_the_first_axis_shape():
+    src = """
+        import numpy as np
+        def lse(x):
+            return np.log(sum(np.exp(x)))
+    """
+    old, new = both(src, "logsumexp-unshifted", "lse")
+    x = ORDINARY[:2, :3]
+    assert new(x).shape == old(x).shape == (3,)
+    np.testing.assert_allclose(new(x), old(x), rtol=1e-13)
+    # reference: scipy.special.logsumexp along axis 0
+    np.testing.assert_allclose(new(EXTREME), scipy.special.logsumexp(EXTREME, axis=0), rtol=1e-13)

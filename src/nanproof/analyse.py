@@ -7,6 +7,7 @@ decisions that apply to every rule (suppression comments, precedence, order).
 from __future__ import annotations
 
 import ast
+import bisect
 import io
 import re
 import tokenize
@@ -33,6 +34,10 @@ class Hit:
     suggestion: str | None = None
     covers: tuple[ast.AST, ...] = ()
     severity: str | None = None  # a rule may raise or lower its default per finding
+
+
+# What a function returning a softmax or a sigmoid must mention.
+LINK_TRIGGERS = (r"exp\s*\(", r"\w*softmax", r"\w*Softmax", r"\w*sigmoid", r"\w*Sigmoid", r"expit")
 
 
 @lru_cache(maxsize=64)
@@ -214,6 +219,13 @@ def module_parts(path: str) -> tuple[str, ...]:
 # The walk
 # ---------------------------------------------------------------------------------------
 def _candidate_lines(text: str, regex: re.Pattern) -> set[int]:
+    if "\r" in text and text.count("\r\n") != text.count("\r"):
+        # old Mac (\r) or mixed line ends: number lines as Python does, the slow way
+        starts, pos = [], 0
+        for line in physical_lines(text):
+            starts.append(pos)
+            pos += len(line)
+        return {bisect.bisect_right(starts, m.start()) for m in regex.finditer(text)}
     lines: set[int] = set()
     pos = 0
     line = 1
@@ -361,7 +373,9 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
         return FileResult(path, problem=tree)
     regex = trigger_regex(tuple(t for r in rules for t in r.triggers))
     lines = _candidate_lines(text, regex) if rules else set()
-    if not lines:
+    # Helpers that return a softmax or sigmoid matter to other files whatever rules run.
+    link_lines = _candidate_lines(text, trigger_regex(LINK_TRIGGERS))
+    if not lines and not link_lines:
         return FileResult(path)
     analysis = Analysis(path, text, tree, project)
     dispatch: dict[type, list[Rule]] = {}
@@ -371,7 +385,7 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
     try:
         hits = _walk(analysis, dispatch, lines)
         findings = [_finding(analysis, r, h, c) for r, h, c in hits]
-        exports, imports = _links(analysis, lines)
+        exports, imports = _links(analysis, link_lines | lines)
     except RecursionError:
         return FileResult(path, problem=Problem(path, "expression nesting too deep to analyse"))
     by_id = {r.id: r for r in rules}

@@ -86,6 +86,11 @@ def import_edit(tree: ast.Module, line_text: str) -> Edit:
         elif not isinstance(stmt, (ast.Import, ast.ImportFrom)):
             if after or i > 0:
                 break
+    if not after and tree.body:
+        # no import and no docstring: above the first statement, below what precedes it
+        # (a shebang, a coding declaration, a licence comment)
+        first = tree.body[0]
+        after = min([first.lineno, *(d.lineno for d in getattr(first, "decorator_list", ()))]) - 1
     return Edit(Span(after + 1, 1, after + 1, 1), line_text + "\n")
 
 

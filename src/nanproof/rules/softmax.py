@@ -483,6 +483,10 @@ def _lse_text(ctx: Context, red: Reduction, t: facts.ExpTerm) -> tuple[str, str]
         return ("auto", f"{torch}.logsumexp({u}, dim={axis}{keepkw})") if torch else ("auto", f"{paren(u, u_node)}.logsumexp(dim={axis}{keepkw})")
     if fw == "tf" and prefix:
         return "auto", f"{prefix}.reduce_logsumexp({u}{', axis=' + axis if axis else ''}{', keepdims=True' if keep else ''})"
+    if red.call.framework == "builtins":
+        if isinstance(facts.strip(red.operand).node, (ast.GeneratorExp, ast.ListComp)):
+            return None
+        axis = "0"  # built-in sum adds along the first axis of an array
     if fw in ("numpy", "jax"):
         np_ = prefix or module_alias(ctx.ref(), "numpy", "cupy")
         if np_ and fw == "numpy":
