@@ -185,14 +185,28 @@ def test_identical_import_insertions_from_several_findings_are_applied_once(tmp_
     assert len(result.changes[0].fixed) == 2
 
 
-def test_import_above_a_shebang_and_coding_declaration_is_refused(tmp_path, rules):
+def test_added_import_lands_below_a_shebang_and_coding_declaration(tmp_path, rules):
     # PEP 263: the declaration works on line 1 or 2 only; with no import and no
-    # docstring in the file, the import would be inserted at line 1.
+    # docstring in the file, the import goes right above the first statement.
     check = rewriting(lambda a: f"unfrob({a})", kind="review", with_import="from frobkit import unfrob")
     config = rules("frob-import", check, kind="review")
     source = b"#!/usr/bin/env python\n# -*- coding: latin-1 -*-\ny = frob('\xe9')\n"
     path = _file(tmp_path, source)
     result = fix_paths([str(path)], config, include_review=True)
+    assert result.exit_code == 0
+    assert path.read_bytes() == b"#!/usr/bin/env python\n# -*- coding: latin-1 -*-\nfrom frobkit import unfrob\ny = unfrob('\xe9')\n"
+
+
+def test_an_edit_above_a_shebang_and_coding_declaration_is_refused(tmp_path, rules):
+    def check(ctx):
+        if frob_call(ctx.node):
+            top = Edit(Span(1, 1, 1, 1), "import frobkit\n")  # a broken rule inserting at line 1
+            yield Hit(ctx.node, "frob is unstable", ctx.fix("auto", [ctx.edit(ctx.node, "frobkit.unfrob(x)"), top]))
+
+    config = rules("frob-top", check)
+    source = b"#!/usr/bin/env python\n# -*- coding: latin-1 -*-\ny = frob('\xe9')\n"
+    path = _file(tmp_path, source)
+    result = fix_paths([str(path)], config)
     assert path.read_bytes() == source and result.exit_code == 3
     assert "shebang or coding declaration" in result.left.problems[0].message
 

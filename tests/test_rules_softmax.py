@@ -512,3 +512,27 @@ def test_adding_an_unseen_value_is_not_a_shift():
             return np.log(np.sum(np.exp(joint), axis=1))
     """
     assert ids(src) == ["logsumexp-unshifted"]
+
+
+def test_hand_written_numpy_softmax_in_a_file_that_also_imports_torch_gets_a_numpy_rewrite():
+    (f,) = findings("""
+        import numpy as np
+        import torch
+        def f(z):
+            e = np.exp(z - z.max(axis=1, keepdims=True))
+            p = e / e.sum(axis=1, keepdims=True)
+            return np.log(p)
+    """)
+    assert f.rule == "log-of-softmax"
+    assert f.fix.edits[0].text == "z - np.logaddexp.reduce(z, axis=1, keepdims=True)"
+
+
+def test_log_softmax_import_is_not_added_when_the_name_is_taken():
+    got = findings("""
+        import numpy as np
+        from scipy.special import softmax
+        def f(x):
+            log_softmax = 3
+            return np.log(softmax(x, axis=1)) + log_softmax
+    """)
+    assert [(f.rule, f.fix) for f in got] == [("log-of-softmax", None)]

@@ -253,21 +253,50 @@ def log_softmax_text(ctx: Context, o: Origin, src: Ref) -> tuple[str, list] | No
             return f"{ctx.text(func.value)}.log_softmax{args}", []
         if isinstance(func, ast.Name) and o.call.qual:
             module = o.call.qual.rsplit(".", 1)[0]
-            bound = ctx.scope.lookup("log_softmax", None)
-            extra = [] if bound is not None else [import_edit(ctx.analysis.tree, f"from {module} import log_softmax")]
-            return f"log_softmax{args}", extra
+            b = ctx.scope.lookup("log_softmax", (ctx.node.lineno, ctx.node.col_offset), ctx.path)
+            if b is None:
+                return f"log_softmax{args}", [import_edit(ctx.analysis.tree, f"from {module} import log_softmax")]
+            if b is not facts.AMBIGUOUS and b.kind == "import" and isinstance(b.stmt, ast.ImportFrom) and b.stmt.module == module:
+                return f"log_softmax{args}", []
+            return None  # the name means something else here
         return None
-    if o.how == "hand-written" and o.logits is not None and simple(o.logits.node) and _names_stable(ctx, o.logits.node, o.logits):
-        u = ctx.text(o.logits.node)
-        axis = ctx.text(o.axis) if o.axis is not None else None
-        torch = module_alias(ctx.ref(), "torch")
-        np_ = module_alias(ctx.ref(), "numpy", "jax.numpy", "cupy")
-        exp_call = facts.exp_term(o.logits).exp if facts.exp_term(o.logits) else None
-        del exp_call
-        if torch and axis is not None:
-            return f"{torch}.log_softmax({u}, dim={axis})", []
-        if np_:
-            return f"{operand(u, o.logits.node)} - {np_}.logaddexp.reduce({u}, axis={axis}{', keepdims=True' if axis is not None else ''})", []
+    if o.how == "hand-written" and o.logits is not None:
+        logits = _unshifted(o.logits)
+        if simple(logits.node) and _names_stable(ctx, logits.node, logits):
+            return _hand_written_log_softmax(ctx, o, src, logits)
+    return None
+
+
+def _unshifted(ref: Ref) -> Ref:
+    """``u`` of ``u - max(u)``: log_softmax does its own shift."""
+    node = ref.node
+    if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Sub):
+        m = facts.max_operand(ref.child(node.right))
+        if m is not None and facts.same(m, ref.child(node.left)):
+            return ref.child(node.left)
+    return ref
+
+
+def _hand_written_log_softmax(ctx: Context, o: Origin, src: Ref, logits: Ref) -> tuple[str, list] | None:
+    """In the framework of the softmax's own ``exp``: ``torch.log_softmax(u, dim=a)``,
+    ``jax.nn.log_softmax(u, axis=a)``, NumPy ``u - np.logaddexp.reduce(u, axis=a, keepdims=True)``."""
+    ms = facts.manual_softmax(src)
+    exp = facts.op_of(ms.numerator.exp) if ms is not None else None
+    if exp is None:
+        return None
+    u = ctx.text(logits.node)
+    axis = ctx.text(o.axis) if o.axis is not None else None
+    prefix = func_prefix(exp, ctx.text)
+    if exp.framework == "torch" or exp.is_method:
+        torch = prefix if exp.framework == "torch" else module_alias(ctx.ref(), "torch")
+        return (f"{torch}.log_softmax({u}, dim={axis})", []) if torch and axis is not None else None
+    if exp.framework == "jax":
+        jax = module_alias(ctx.ref(), "jax")
+        return (f"{jax}.nn.log_softmax({u}{', axis=' + axis if axis else ''})", []) if jax else None
+    if exp.framework == "numpy":
+        np_ = prefix or module_alias(ctx.ref(), "numpy", "cupy")
+        keep = ", keepdims=True" if axis is not None else ""
+        return (f"{operand(u, logits.node)} - {np_}.logaddexp.reduce({u}, axis={axis}{keep})", []) if np_ else None
     return None
 
 
