@@ -361,6 +361,20 @@ XLOGX = {
         def entropy(p):
             return -tf.reduce_sum(p * tf.log(p), 1)
     """,
+    "read_before_it_is_zeroed": """
+        import numpy as np
+        def entropy(p):
+            h = p * np.log(p)
+            total = h.sum()
+            h[p == 0] = 0
+            return -total
+    """,
+    "torch_masked_fill_after_keeps_nan_gradient": """
+        import torch
+        def stirling(target):
+            term = target * torch.log(target) - target
+            return term.masked_fill(target <= 1, 0)
+    """,
     "softmax_probabilities": """
         import torch.nn.functional as F
         def entropy(logits):
@@ -459,6 +473,26 @@ XLOGX_QUIET = {
                 h -= p * math.log(p)
             return h
     """,
+    "zeroed_after_it_is_stored": """
+        import numpy as np
+        def entropy(p):
+            plogp = p * np.log(p)
+            plogp[p == 0] = 0.0
+            return -plogp.sum(axis=-1)
+    """,
+    "nan_entries_zeroed_after": """
+        import numpy as np
+        def entropy(p):
+            h = p * np.log(p)
+            h[np.isnan(h)] = 0
+            return -h.sum()
+    """,
+    "every_later_read_guarded_in_numpy": """
+        import numpy as np
+        def entropy(p):
+            h = p * np.log(p)
+            return -np.where(p > 0, h, 0.0).sum()
+    """,
     "boolean_mask": """
         import numpy as np
         def entropy(p):
@@ -494,6 +528,11 @@ XLOGX_QUIET = {
         def f(xs):
             k = np.arange(1, 100)
             return len(xs) * math.log(len(xs)) + np.sum(k * np.log(k))
+    """,
+    "log_of_a_log": """
+        from math import log
+        def bound(n):
+            return log(n) * log(log(n))
     """,
     "positive_constants": """
         import numpy as np
@@ -546,7 +585,7 @@ def test_math_log_at_zero_is_reported_as_an_exception_not_nan():
 
 
 def test_gradient_guards_say_the_gradient_stays_nan():
-    for key in ("torch_where_guard_keeps_nan_gradient", "torch_nansum_keeps_nan_gradient"):
+    for key in ("torch_where_guard_keeps_nan_gradient", "torch_nansum_keeps_nan_gradient", "torch_masked_fill_after_keeps_nan_gradient"):
         assert "gradient" in only(XLOGX[key], "xlogx-nan").message
 
 
@@ -663,6 +702,14 @@ PRODUCT_QUIET = {
         import numpy as np
         def fan(w):
             return math.log(math.prod(w.shape)) + np.log(np.prod(w.shape[1:]))
+    """,
+    "product_of_named_sizes": """
+        import numpy as np
+        from math import prod
+        def cost(kernel_size, a, b):
+            full_out_shape = [n + k - 1 for n, k in zip(a, b)]
+            n = prod(full_out_shape)
+            return np.log(np.prod(kernel_size)) + 3 * n * np.log(n)
     """,
     "log_with_a_base": """
         import math

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 
 from .. import facts
 from ..analyse import Context
-from ..flow import _BLOCK_FIELDS, Ref, statements_with_paths
+from ..flow import _BLOCK_FIELDS, AMBIGUOUS, Ref, statements_with_paths
 from ..names import OpCall, qualname
 from ._stats_shapes import nan_aware
 
@@ -261,8 +261,9 @@ def statement_guard(ctx: Context, p: Ref) -> bool:
 
 @dataclass(frozen=True)
 class Guard:
-    how: str  # "branch": a Python-level condition; "value": where / nansum / nan_to_num
+    how: str  # "branch": a Python-level condition; "value": where / nansum / zeroing after
     word: str  # for the message
+    framework: str = ""  # of the guard, for "value": NumPy needs only the value to be right
     call: OpCall | None = None
     node: ast.Call | None = None
     branch: int = 0  # which argument of where() holds the term
@@ -287,7 +288,75 @@ def expression_guard(ctx: Context, x: XLogX) -> Guard | None:
                 t = guard_sign(ctx.ref(parent.args[0]), x.p)
                 branch = 1 if child is parent.args[1] else 2
                 if (branch, t) in ((1, "pos"), (2, "neg")):
-                    return Guard("value", "where()", oc, parent, branch)
+                    return Guard("value", "where()", oc.framework, oc, parent, branch)
             if oc.op == "nan_to_num" or (oc.op == "sum" and nan_aware(oc)):
-                return Guard("value", "nansum()" if oc.op == "sum" else "nan_to_num()", oc, parent)
+                return Guard("value", "nansum()" if oc.op == "sum" else "nan_to_num()", oc.framework, oc, parent)
+    return later_guard(ctx, x)
+
+
+# ---------------------------------------------------------------------------------------
+# Guards after the term is stored: h = p * log(p); h[p == 0] = 0
+# ---------------------------------------------------------------------------------------
+def _isnan_of(node: ast.AST, name: str) -> bool:
+    """``isnan(h)`` / ``h.isnan()`` / ``~isfinite(h)`` of the name itself."""
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.Invert):
+        node, want = node.operand, "isfinite"
+    else:
+        want = "isnan"
+    if not isinstance(node, ast.Call):
+        return False
+    f = node.func
+    fname = f.attr if isinstance(f, ast.Attribute) else f.id if isinstance(f, ast.Name) else ""
+    arg = node.args[0] if node.args else f.value if isinstance(f, ast.Attribute) else None
+    return fname == want and isinstance(arg, ast.Name) and arg.id == name
+
+
+def _zeroes(ctx: Context, s: ast.stmt, name: str, p: Ref) -> bool:
+    """``h[p == 0] = 0`` or ``h[isnan(h)] = 0``."""
+    if not (isinstance(s, ast.Assign) and len(s.targets) == 1 and facts._const(s.value) == 0):
+        return False
+    t = s.targets[0]
+    if not (isinstance(t, ast.Subscript) and isinstance(t.value, ast.Name) and t.value.id == name):
+        return False
+    return guard_sign(ctx.ref(t.slice), p) == "neg" or _isnan_of(t.slice, name)
+
+
+def _guarded_use(ctx: Context, load: ast.Name, p: Ref, parents: dict) -> Guard | None:
+    """``h.masked_fill(p <= 0, 0)``, ``where(p > 0, h, 0)``, ``nansum(h)``, ``nan_to_num(h)``."""
+    parent = parents.get(id(load))
+    if isinstance(parent, ast.Attribute) and parent.attr == "masked_fill":
+        call = parents.get(id(parent))
+        ok = isinstance(call, ast.Call) and len(call.args) == 2 and facts._const(call.args[1]) == 0
+        return Guard("value", "masked_fill()", "method") if ok and guard_sign(ctx.ref(call.args[0]), p) == "neg" else None
+    oc = facts.op_of(ctx.ref(parent)) if isinstance(parent, ast.Call) else None
+    if oc is None:
+        return None
+    if oc.op == "where" and len(parent.args) == 3 and load in parent.args[1:]:
+        sign = guard_sign(ctx.ref(parent.args[0]), p)
+        return Guard("value", "where()", oc.framework) if sign == ("pos" if load is parent.args[1] else "neg") else None
+    if (oc.op == "nan_to_num" or (oc.op == "sum" and nan_aware(oc))) and load in parent.args:
+        return Guard("value", "nansum()" if oc.op == "sum" else "nan_to_num()", oc.framework)
     return None
+
+
+def later_guard(ctx: Context, x: XLogX) -> Guard | None:
+    """The term is stored in a name, and the nan is removed before anything else reads it:
+    the next statement naming it zeroes the bad entries, or every later read is guarded."""
+    stmt = ctx.stmt
+    if not (isinstance(stmt, ast.Assign) and len(stmt.targets) == 1 and isinstance(stmt.targets[0], ast.Name)):
+        return None
+    name = stmt.targets[0].id
+    body = _block(ctx)
+    at = next((i for i, s in enumerate(body) if s is stmt), None)
+    for s in body[at + 1 :] if at is not None else ():
+        if any(isinstance(n, ast.Name) and n.id == name for n in ast.walk(s)):
+            if _zeroes(ctx, s, name, x.p):
+                return Guard("value", "zeroing", x.oc.framework)
+            break
+    b = ctx.scope.lookup(name, (stmt.end_lineno, stmt.end_col_offset + 1), ctx.path)
+    reads = [n for n in ctx.scope.loads(name) if ctx.scope.lookup(name, (n.lineno, n.col_offset), ctx.path) in (b, AMBIGUOUS)]
+    cache = ctx.scope.cache
+    if "parents" not in cache:
+        cache["parents"] = {id(c): n for n in ast.walk(ctx.scope.node) for c in ast.iter_child_nodes(n)}
+    guards = [_guarded_use(ctx, n, x.p, cache["parents"]) for n in reads]
+    return guards[0] if guards and all(guards) else None

@@ -249,15 +249,24 @@ def evident_int(ref: Ref, depth: int = 0) -> bool:
     return False
 
 
-def exact_integers(data: Ref, prod: OpCall) -> bool:
-    """Products that cannot underflow: a shape (``x.shape``, ``x.size()``), or Python
-    integers multiplied by math.prod (arbitrary precision)."""
-    s = facts.strip(data)
-    n = s.node
+_SHAPE_WORDS = ("shape", "size", "sizes", "dims")
+
+
+def _names_sizes(n: ast.AST) -> bool:
     if isinstance(n, ast.Subscript):
         n = n.value
-    if isinstance(n, ast.Attribute) and n.attr == "shape":
+    word = n.attr if isinstance(n, ast.Attribute) else n.id if isinstance(n, ast.Name) else ""
+    return word.lower().endswith(_SHAPE_WORDS)
+
+
+def exact_integers(data: Ref, prod: OpCall) -> bool:
+    """Products that cannot underflow: a shape (``x.shape``, ``x.size()``, a name that
+    says it holds sizes), or Python integers multiplied by math.prod (arbitrary
+    precision)."""
+    s = facts.strip(data)
+    if _names_sizes(data.node) or _names_sizes(s.node):  # x.shape, kernel_size, full_out_shape
         return True
+    n = s.node
     if isinstance(n, ast.Call) and isinstance(n.func, ast.Attribute) and n.func.attr == "size" and not n.args:
         return True
     if prod.framework != "math":

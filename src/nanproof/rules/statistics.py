@@ -34,6 +34,7 @@ from .softmax import _lines, _names_stable, log_softmax_text
 # fraction of its size, so their difference keeps no digit once the spread falls below
 # about sqrt(eps) = 1.5e-8 times the mean.
 _EPS64 = "2.2e-16"
+_LOGS = ("log", "log2", "log10")
 _VAR_HINT = (
     "var(x) of the framework: numpy.var (ddof=0 by default), torch.var(x, correction=0), "
     "tf.math.reduce_variance, statistics.pvariance; or the two-pass mean((x - mean(x))**2)"
@@ -173,8 +174,10 @@ def xlogx_nan(ctx: Context):
     x = xlogx_parts(ctx, node)
     if x is None or positive(x.p) or filtered(x.p) or evident_int(x.p) or statement_guard(ctx, x.p):
         return
+    if facts.op(x.p, *_LOGS) is not None:
+        return  # log(n) * log(log(n)): an asymptotic formula of logs, not an entropy term
     guard = expression_guard(ctx, x)
-    if guard is not None and (guard.how == "branch" or guard.call.framework not in _AUTODIFF):
+    if guard is not None and (guard.how == "branch" or guard.framework not in _AUTODIFF):
         return  # a Python branch keeps both value and gradient; NumPy needs only the value
     what = "p * log(p / q)" if x.q is not None else "p * log(p)"
     where = _lines(ctx, x.log.node)
@@ -288,7 +291,6 @@ def _where_fix(ctx: Context, x: XLogX, guard):
 # ---------------------------------------------------------------------------------------
 # log-of-product
 # ---------------------------------------------------------------------------------------
-_LOGS = ("log", "log2", "log10")
 _REDUCE_WORDS = ("axis", "dim", "keepdims", "keepdim", "keep_dims", "reduction_indices")
 
 
