@@ -173,3 +173,21 @@ def test_an_added_import_goes_below_a_shebang_and_coding_line():
 
     tree = parse("m.py", "#!/usr/bin/env python\n# -*- coding: utf-8 -*-\n\nx = 1\n")
     assert import_edit(tree, "import numpy as np").span.line == 4
+
+
+def test_a_rule_that_raises_makes_a_problem_and_the_other_rules_still_report(monkeypatch):
+    import ast as _ast
+
+    from nanproof import registry
+    from nanproof.api import scan_source
+
+    def broken(ctx):
+        raise ValueError("boom")
+        yield  # pragma: no cover
+
+    registry.all_rules()  # load the real rules first
+    bad = registry.Rule("broken-rule", "api", "note", "test double", None, (_ast.Call,), broken, (), (r"exp\s*\(",))
+    monkeypatch.setitem(registry._REGISTRY, "broken-rule", bad)
+    result = scan_source(UNSTABLE, "m.py", Config(rules=frozenset({"broken-rule", "softmax-unshifted"})))
+    assert [f.rule for f in result.findings] == ["softmax-unshifted"]
+    assert result.problem is not None and "broken-rule" in result.problem.message and "\n" not in result.problem.message

@@ -253,7 +253,9 @@ def _region(body: list, lines: set[int]) -> Iterable[ast.stmt]:
             yield stmt
 
 
-def _walk(analysis: Analysis, dispatch: dict, lines: set[int]) -> list[tuple[Rule, Hit, Context]]:
+def _walk(analysis: Analysis, dispatch: dict, lines: set[int], errors: list[str]) -> list[tuple[Rule, Hit, Context]]:
+    """Every rule's hits in the candidate statements. A rule that raises loses that node
+    only: the error is recorded (the file becomes a problem) and the walk goes on."""
     hits: list[tuple[Rule, Hit, Context]] = []
     module = analysis.module
     stack: list[tuple[ast.AST, Scope, Path, ast.stmt]] = [(s, module, (), s) for s in reversed(list(_region(analysis.tree.body, lines)))]
@@ -263,8 +265,12 @@ def _walk(analysis: Analysis, dispatch: dict, lines: set[int]) -> list[tuple[Rul
         if rules:
             ctx = Context(analysis, node, scope, path, stmt)
             for r in rules:
-                for hit in r.check(ctx) or ():
-                    hits.append((r, hit, ctx))
+                try:
+                    hits.extend((r, hit, ctx) for hit in r.check(ctx) or ())
+                except RecursionError:
+                    raise
+                except Exception as e:  # a bug in a rule must not end the run
+                    errors.append(f"internal error in rule {r.id} at line {getattr(node, 'lineno', '?')}: {type(e).__name__}: {e}".splitlines()[0])
         children: list[tuple[ast.AST, Scope, Path, ast.stmt]] = []
         if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef)):
             for d in node.decorator_list:
@@ -382,17 +388,21 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
     for r in rules:
         for t in r.nodes:
             dispatch.setdefault(t, []).append(r)
+    errors: list[str] = []
     try:
-        hits = _walk(analysis, dispatch, lines)
+        hits = _walk(analysis, dispatch, lines, errors)
         findings = [_finding(analysis, r, h, c) for r, h, c in hits]
         exports, imports = _links(analysis, link_lines | lines)
     except RecursionError:
         return FileResult(path, problem=Problem(path, "expression nesting too deep to analyse"))
+    except Exception as e:  # outside any one rule: the file cannot be analysed
+        return FileResult(path, problem=Problem(path, f"internal error: {type(e).__name__}: {e}".splitlines()[0]))
+    problem = Problem(path, errors[0] + (f" (and {len(errors) - 1} more)" if len(errors) > 1 else "")) if errors else None
     by_id = {r.id: r for r in rules}
     per_line, whole = _suppressions(text)
     findings = [f for f in _precedence(findings, by_id) if not _silenced(f, per_line, whole)]
     findings.sort(key=Finding.sort_key)
-    return FileResult(path, tuple(findings), exports=exports, imports=imports)
+    return FileResult(path, tuple(findings), problem=problem, exports=exports, imports=imports)
 
 
 def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:

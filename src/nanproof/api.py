@@ -90,7 +90,7 @@ def scan(paths: list[str], config: Config = Config(), progress: Progress | None 
     table = project_table(results)
     if table:
         names = {name for _, name in table}
-        again = [i for i, r in enumerate(results) if r.problem is None and names.intersection(r.imports)]
+        again = [i for i, r in enumerate(results) if names.intersection(r.imports)]
         if again:
             redone = _run([files[i] for i in again], rule_ids, table, jobs, None, 0, len(again))
             for i, r in zip(again, redone):
