@@ -41,6 +41,13 @@ _VAR_HINT = (
 )
 
 
+def _called(word: str, call: ast.Call) -> bool:
+    """The called name contains ``word``: a cheap test before resolving what it calls
+    (the prefilter already asked for ``word(`` in the file)."""
+    f = call.func
+    return word in (f.attr if isinstance(f, ast.Attribute) else f.id if isinstance(f, ast.Name) else "")
+
+
 # ---------------------------------------------------------------------------------------
 # variance-cancellation
 # ---------------------------------------------------------------------------------------
@@ -304,6 +311,8 @@ _REDUCE_WORDS = ("axis", "dim", "keepdims", "keepdim", "keep_dims", "reduction_i
     triggers=(r"log(?:2|10)?\s*\(", r"prod\s*\(", r"reduce_prod\s*\("),
 )
 def log_of_product(ctx: Context):
+    if not _called("log", ctx.node):
+        return
     oc = facts.op_of(ctx.ref())
     if oc is None or oc.op not in _LOGS or oc.subject is None or (not oc.is_method and len(oc.call.args) != 1):
         return
@@ -364,11 +373,15 @@ def _product_fix(ctx: Context, oc: OpCall, pc: OpCall, prod: Ref, data: Ref):
     summary="sqrt(sum(x**2)) / sqrt(a**2 + b**2): the squares overflow or underflow; use hypot or a scaled norm",
     fix="auto",
     nodes=(ast.Call, ast.BinOp),
-    triggers=(r"sqrt\s*\(", r"0?\.5\b"),
+    # ``x ** 0.5`` has no trigger of its own (a "0.5" trigger would wake half of numeric
+    # code): it is seen where a sum or another trigger brings its statement in.
+    triggers=(r"sqrt\s*\(",),
 )
 def norm_overflow(ctx: Context):
     node = ctx.node
     if isinstance(node, ast.Call):
+        if not _called("sqrt", node):
+            return
         oc = facts.op_of(ctx.ref())
         if oc is None or oc.op != "sqrt" or oc.subject is None or (not oc.is_method and len(node.args) != 1):
             return
