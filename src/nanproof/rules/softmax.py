@@ -612,7 +612,7 @@ _MODULES = {"torch.nn.Softmax", "torch.nn.LogSoftmax", "torch.nn.Softmin", "torc
     summary="PyTorch softmax / log_softmax / softmin without dim: deprecated implicit axis, wrong for 1-D and 3-D inputs",
     fix="review",
     nodes=(ast.Call,),
-    triggers=(r"(?:log_)?softmax\s*\(", r"(?:Log)?Softmax\s*\(", r"softmin\s*\(", r"Softmin\s*\("),
+    triggers=(r"softmax\s*\(", r"log_softmax\s*\(", r"Softmax\s*\(", r"LogSoftmax\s*\(", r"softmin\s*\(", r"Softmin\s*\("),
 )
 def softmax_implicit_dim(ctx: Context):
     call = ctx.node
@@ -810,7 +810,8 @@ def _needs_flag(ctx: Context, y: Ref) -> bool:
     fix="auto",
     nodes=(ast.BinOp, ast.AugAssign, ast.Assign, ast.Call),
     triggers=(r"diag\w*\s*\(", r"outer\s*\(", r"einsum\s*\(", r"eye\s*\(", r"jac\w*\s*\(", r"ger\s*\(", r"unsqueeze\s*\(", r"None\s*\]",
-              r"\w+\s*\[\s*\w+\s*,\s*\w+\s*\]\s*=", r"\w+\s*\[\s*\w+\s*\]\s*\[\s*\w+\s*\]\s*="),
+              # element loops: y[i] * (d - y[j]) and -y[i] * y[j]
+              r"\]\s*\*\s*\(", r"\]\s*\*\s*\w+\s*\["),
 )
 def softmax_jacobian_dense(ctx: Context):
     node = ctx.node
