@@ -270,6 +270,20 @@ def test_math_entropy_no_longer_raises_at_zero():
     assert new([0.0, 0.25, 0.75]) == pytest.approx(scipy.special.entr([0.0, 0.25, 0.75]).sum(), rel=1e-15)  # reference: entr
 
 
+def test_entropy_in_bits_with_math_log_base_two():
+    src = """
+        import math
+        def bits(ps):
+            return -sum(p * math.log(p, 2) for p in ps)
+    """
+    old, new = both(src, "xlogx-nan", "bits", include_review=True)
+    assert new([0.5, 0.5]) == old([0.5, 0.5]) == 1.0
+    with pytest.raises(ValueError):
+        old([0.0, 0.5, 0.5])
+    # reference: scipy.special.entr in nats, divided by ln 2
+    assert new([0.0, 0.25, 0.75]) == pytest.approx(scipy.special.entr([0.25, 0.75]).sum() / math.log(2), rel=1e-15)
+
+
 @needs_torch
 def test_torch_xlogy_fixes_the_value_but_not_the_gradient_at_zero():
     src = """

@@ -326,6 +326,11 @@ XLOGX = {
         def entropy(ps):
             return -sum(p * math.log(p) for p in ps)
     """,
+    "math_log_base_two": """
+        import math
+        def bits(ps):
+            return -sum(p * math.log(p, 2) for p in ps)
+    """,
     "torch_function": """
         import torch
         def entropy(p):
@@ -534,6 +539,18 @@ XLOGX_QUIET = {
         def bound(n):
             return log(n) * log(log(n))
     """,
+    "grid_above_zero": """
+        import numpy as np
+        def f():
+            x = np.linspace(0.1, 2.0, 50)
+            return x * np.log(x)
+    """,
+    "user_function_called_log": """
+        def log(v):
+            return v
+        def f(p):
+            return p * log(p)
+    """,
     "positive_constants": """
         import numpy as np
         c = 2 * np.log(2) + 0.5 * np.log(0.5)
@@ -569,6 +586,7 @@ def test_ignores_guarded_stable_or_unrelated_logs(src):
     ("import numpy as np\nfrom scipy import special\ndef h(p):\n    return -np.sum(p * np.log(p))\n", "auto", {"special.xlogy(p, p)"}),
     ("import numpy as np\nimport scipy.special\ndef kl(p, q):\n    return np.sum(p * np.log(p / q))\n", "auto", {"scipy.special.rel_entr(p, q)"}),
     (XLOGX["math_scalars_in_a_comprehension"], "review", {"(p * math.log(p) if p != 0 else 0.0)"}),
+    (XLOGX["math_log_base_two"], "review", {"(p * math.log(p, 2) if p != 0 else 0.0)"}),
     # the second where gives the discarded branch a finite gradient
     (XLOGX["torch_where_guard_keeps_nan_gradient"], "review", {"torch.where(p > 0, p, 1)"}),
     (XLOGX["jax_where_guard_keeps_nan_gradient"], "review", {"jnp.where(p == 0, 1, p)"}),

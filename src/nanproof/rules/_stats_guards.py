@@ -95,10 +95,22 @@ def _unsign(ref: Ref) -> tuple[Ref, bool]:
 
 def _log_call(ref: Ref) -> tuple[Ref, OpCall, Ref] | None:
     s = facts.strip(ref)
-    oc = facts.op_of(s)
-    if oc is None or oc.op not in (*_LOGS, "log1p") or oc.subject is None or (not oc.is_method and len(oc.call.args) != 1):
+    oc = facts.op_of(s) or _math_log_base(s)
+    if oc is None or oc.op not in (*_LOGS, "log1p", "log_base") or oc.subject is None:
+        return None
+    if not oc.is_method and len(oc.call.args) != (2 if oc.op == "log_base" else 1):
         return None
     return s, oc, s.child(oc.subject)
+
+
+def _math_log_base(ref: Ref) -> OpCall | None:
+    """``math.log(p, 2)``: not a natural log (``names`` leaves it out for that reason), but
+    ``p * math.log(p, 2)`` still raises at p = 0."""
+    n = ref.node
+    if isinstance(n, ast.Call) and len(n.args) == 2 and not n.keywords and isinstance(n.func, (ast.Name, ast.Attribute)):
+        if qualname(ref.child(n.func)) == "math.log":
+            return OpCall("log_base", "math", n, "math.log", None)
+    return None
 
 
 def _log_term(p: Ref, other: Ref) -> tuple[Ref, OpCall, Ref | None] | None:
@@ -158,13 +170,21 @@ def positive(ref: Ref, depth: int = 0) -> bool:
 
 
 def _counting_from_one(ref: Ref) -> bool:
-    """``range(1, n)`` / ``np.arange(1, n)``: a start of at least 1, counting up."""
+    """``range(1, n)`` / ``np.arange(1, n)`` (a start of at least 1, counting up),
+    ``linspace(a, b)`` with both ends above zero, ``logspace``."""
     n = ref.node
-    if not (isinstance(n, ast.Call) and isinstance(n.func, (ast.Name, ast.Attribute)) and len(n.args) in (2, 3)):
+    if not (isinstance(n, ast.Call) and isinstance(n.func, (ast.Name, ast.Attribute)) and len(n.args) >= 2):
         return False
-    if qualname(ref.child(n.func)) not in ("builtins.range", "numpy.arange", "torch.arange"):
+    q = qualname(ref.child(n.func))
+    start = facts._const(n.args[0])
+    if q in ("numpy.linspace", "torch.linspace"):  # both ends above zero
+        stop = facts._const(n.args[1])
+        return start is not None and stop is not None and start > 0 and stop > 0
+    if q == "numpy.logspace":
+        return True
+    if q not in ("builtins.range", "numpy.arange", "torch.arange"):
         return False
-    start, step = facts._const(n.args[0]), facts._const(n.args[2]) if len(n.args) == 3 else 1
+    step = facts._const(n.args[2]) if len(n.args) == 3 else 1
     return start is not None and step is not None and start >= 1 and step > 0
 
 

@@ -209,6 +209,8 @@ def _xlogx_fix(ctx: Context, x: XLogX, guard):
             kind = "auto" if origin.how == "framework" and not got[1] else "review"
             return ctx.fix(kind, [ctx.edit(x.log.node, got[0]), *got[1]]), None
     hint = "xlogy(p, p) / rel_entr(p, q) (scipy.special, torch.xlogy, jax.scipy.special), or scipy.special.entr(p) = -p * log(p)"
+    if x.oc.framework == "math" and simple(x.p.node) and guard is None:
+        return ctx.fix("review", [ctx.edit(ctx.node, f"({ctx.text(ctx.node)} if {ctx.text(x.p.node)} != 0 else 0.0)")]), None
     if x.oc.op not in ("log", "log1p"):
         return None, hint.replace("xlogy(p, p)", f"xlogy(p, p) / log({x.oc.op[3:]})")
     if not simple(x.p.node) or (x.q is not None and not _names_stable(ctx, x.q.node, x.q)):
@@ -220,7 +222,7 @@ def _xlogx_fix(ctx: Context, x: XLogX, guard):
     if got is None:
         return None, hint
     kind, text, extra, difference = got
-    if x.negated and x.oc.framework != "math":  # the math rewrite keeps the sign in the term
+    if x.negated:
         text = f"-({text})" if difference else f"-{text}"
     elif difference and needs_parens(ctx, ctx.node):
         text = f"({text})"
@@ -233,8 +235,6 @@ def _xlogy_text(ctx: Context, x: XLogX):
     p = ctx.text(x.p.node)
     q = ctx.text(x.q.node) if x.q is not None else None
     oc = x.oc
-    if oc.framework == "math":  # keep the scalar and its type; only p = 0 changes
-        return "review", f"({ctx.text(ctx.node)} if {p} != 0 else 0.0)", [], False
     if x.one_plus is not None:
         return _xlog1py_text(ctx, x, p)
     if oc.framework in ("torch", "method", "tf"):
