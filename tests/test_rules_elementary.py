@@ -944,3 +944,12 @@ def test_a_where_threshold_without_a_literal_still_guards_numpy_values():
         def softplus(x, threshold):
             return np.where(x > threshold, x, np.log1p(np.exp(x)))
     """) == []
+
+
+@pytest.mark.parametrize("src", [
+    "import numpy as np\ndef f(n):\n    return np.log(n + 1)\n",
+    "import math\ndef f(n_samples, k):\n    return math.log(1 + n_samples) * k\n",
+    "import numpy as np\nclass C:\n    def f(self):\n        return np.log(1 + self.num_classes)\n",
+])
+def test_ignores_log_of_one_plus_a_conventional_count_name(src):
+    assert "log1p-manual" not in ids(src)

@@ -119,7 +119,7 @@ METHODS = {
     "detach": "identity", "float": "identity", "double": "identity", "half": "identity",
     "astype": "identity", "type": "identity", "to": "identity", "contiguous": "identity",
     "clone": "identity", "cpu": "identity", "cuda": "identity", "numpy": "identity", "copy": "identity",
-    "random": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
+    "random": "rand", "rand": "rand", "random_sample": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
     "log2": "log2", "log10": "log10", "pow": "power", "nan_to_num": "nan_to_num",
 }
 NO_ARG_METHODS = {"exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",

@@ -8,6 +8,7 @@ Rules ask these questions to stay quiet where a textbook pattern does no harm:
 from __future__ import annotations
 
 import ast
+import re
 import math
 import operator
 
@@ -84,6 +85,12 @@ def _encloses(outer: ast.AST, inner: ast.AST) -> bool:
     return a[0] <= b <= a[1]
 
 
+# Names that hold counts by convention (common practice in numerical Python: n, k,
+# n_samples, num_classes, steps, epoch): an unannotated parameter or attribute so named
+# is taken as an integer, so that ``log(n + 1)`` is not reported.
+_COUNT_NAME = re.compile(r"^(?:[nmkNMK]|n_\w+|num_?\w*|\w*_count|counts?|n?samples|steps|epochs?|iters?|iterations?|length|len_\w+)$")
+
+
 def integral(ref: Ref, depth: int = 0) -> bool:
     """Evidently an integer (or an integer array): an int literal, ``len()``, a count, an
     index of ``range`` / ``enumerate``, ``np.arange(n)``, a parameter annotated ``int``,
@@ -103,6 +110,8 @@ def integral(ref: Ref, depth: int = 0) -> bool:
         if isinstance(b.stmt, (ast.For, ast.AsyncFor)) and b.kind in ("loop", "other"):  # tuple targets are "other"
             return _iterates_ints(ref, b.stmt.iter, b.stmt.target, b.target)
         ann = getattr(b.target, "annotation", None) if b.kind == "param" else None
+        if ann is None and b.kind == "param":
+            return bool(_COUNT_NAME.match(node.id))
         return isinstance(ann, ast.Name) and ann.id == "int"
     if isinstance(node, ast.BinOp):
         l, r = ref.child(node.left), ref.child(node.right)
@@ -116,7 +125,7 @@ def integral(ref: Ref, depth: int = 0) -> bool:
         v = node.value
         return (isinstance(v, ast.Attribute) and v.attr == "shape") or integral(ref.child(v), depth + 1)
     if isinstance(node, ast.Attribute):
-        return node.attr in _INT_ATTRS
+        return node.attr in _INT_ATTRS or bool(_COUNT_NAME.match(node.attr))
     if isinstance(node, ast.Call):
         q = _qual(ref, node.func)
         if q in _INT_CALLS or _int_range(ref, node):
