@@ -580,7 +580,8 @@ def test_ignores_guarded_stable_or_unrelated_logs(src):
 
 @pytest.mark.parametrize("src, kind, edits", [
     (XLOGX["torch_function"], "auto", {"torch.xlogy(p, p)"}),
-    (XLOGX["torch_method"], "auto", {"(torch.xlogy(p, p) - torch.xlogy(p, q))"}),
+    (XLOGX["torch_method"], "auto", {"torch.xlogy(p, p) - torch.xlogy(p, q)"}),  # already in parentheses
+    ("import torch\ndef kl(p, q, w):\n    return torch.sum(p * torch.log(p / q) * w)\n", "auto", {"(torch.xlogy(p, p) - torch.xlogy(p, q))"}),
     (XLOGX["tensorflow"], "auto", {"tf.math.xlogy(p, p)"}),
     (XLOGX["from_import_log_and_negated_factor"], "review", {"-xlogy(p, p)", "from scipy.special import xlogy\n"}),
     ("import numpy as np\nfrom scipy import special\ndef h(p):\n    return -np.sum(p * np.log(p))\n", "auto", {"special.xlogy(p, p)"}),

@@ -34,9 +34,16 @@ def _ancestors(ctx: Context, node: ast.AST):
 
 
 def needs_parens(ctx: Context, node: ast.AST) -> bool:
-    """Would a difference put in place of ``node`` need parentheses?"""
+    """Would a difference put in place of ``node`` need parentheses? Not as a statement's
+    value, an argument, or where the source already wraps the node in them."""
     parent = _parents(ctx).get(id(node))
-    return not (isinstance(parent, (ast.stmt, ast.keyword)) or (isinstance(parent, ast.Call) and node in parent.args))
+    if isinstance(parent, (ast.stmt, ast.keyword)) or (isinstance(parent, ast.Call) and node in parent.args):
+        return False
+    if node.lineno == node.end_lineno:
+        line = ctx.analysis.lines[node.lineno - 1].encode()
+        before, after = line[: node.col_offset].rstrip(), line[node.end_col_offset :].lstrip()
+        return not (before.endswith(b"(") and after.startswith(b")"))
+    return True
 
 
 def _statement(ctx: Context, sid: int) -> ast.stmt | None:

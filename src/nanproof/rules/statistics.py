@@ -83,6 +83,8 @@ def variance_cancellation(ctx: Context):
 
 def _variance_fix(ctx: Context, mo):
     data = mo.data
+    if isinstance(ctx.node, ast.AugAssign):
+        return None  # ``v -= m**2``: the fix engine rewrites expressions, not statements
     if not _names_stable(ctx, data.node, data) or not all(plain_reduction(m.red) for m in (mo.first, mo.second)):
         return None
     exact = True
@@ -98,8 +100,6 @@ def _variance_fix(ctx: Context, mo):
     if got is None:
         return None
     kind, text, extra = got
-    if isinstance(ctx.node, ast.AugAssign):
-        text = f"{ctx.text(ctx.node.target)} = {text}"
     return ctx.fix(kind if exact else "review", [ctx.edit(ctx.node, text), *extra])
 
 
@@ -212,7 +212,8 @@ def _xlogx_fix(ctx: Context, x: XLogX, guard):
     if x.oc.framework == "math" and simple(x.p.node) and guard is None:
         return ctx.fix("review", [ctx.edit(ctx.node, f"({ctx.text(ctx.node)} if {ctx.text(x.p.node)} != 0 else 0.0)")]), None
     if x.oc.op not in ("log", "log1p"):
-        return None, hint.replace("xlogy(p, p)", f"xlogy(p, p) / log({x.oc.op[3:]})")
+        base = x.oc.op[3:]
+        return None, f"xlogy(p, p) / log({base}) (scipy.special, torch.xlogy, jax.scipy.special), or -entr(p) / log({base})"
     if not simple(x.p.node) or (x.q is not None and not _names_stable(ctx, x.q.node, x.q)):
         return None, hint
     if guard is not None:
