@@ -1,8 +1,10 @@
 """The statistics-family rewrites, proven numerically: equal to the original on ordinary
 inputs; finite and equal to an outside reference where the original fails; and, where
 the claim is accuracy, error in ulps against mpmath at 50 digits before and after."""
+import ast
 import math
 import statistics
+import textwrap
 
 import mpmath
 import numpy as np
@@ -10,7 +12,9 @@ import pytest
 import scipy.linalg
 import scipy.special
 
+import test_rules_statistics as cases
 from harness import fixed, load
+from nanproof.fix import fix_bytes
 
 try:
     import torch
@@ -540,3 +544,25 @@ def test_vector_norm_error_in_ulps_before_and_after():
         after[e] = ulp_error(new(x), exact)
     assert before[0] < 4 and before[170] == math.inf and before[-170] > 1e6, before
     assert max(after.values()) <= 1, after
+
+
+# ---------------------------------------------------------------------------------------
+# Every flagged example of the rule tests goes through the fix engine itself
+# ---------------------------------------------------------------------------------------
+def _flagged_examples() -> list:
+    return [
+        pytest.param(textwrap.dedent(src), id=f"{group.lower()}-{key}")
+        for group in ("VARIANCE", "XLOGX", "PRODUCT", "NORM")
+        for key, src in getattr(cases, group).items()
+    ]
+
+
+@pytest.mark.parametrize("src", _flagged_examples())
+def test_fix_engine_applies_every_statistics_rewrite_it_is_offered(src):
+    ours = {"variance-cancellation", "xlogx-nan", "log-of-product", "norm-overflow"}
+    result = fix_bytes(src.encode(), include_review=True, path="example.py")
+    assert not result.left.problems, result.left.problems
+    if result.changes:
+        ast.parse(result.changes[0].after.decode())
+    # what is left of ours has no rewrite to offer (a suggestion only)
+    assert all(f.fix is None for f in result.left.findings if f.rule in ours)
