@@ -240,6 +240,8 @@ def test_ignores_stable_or_unrelated_moments(src):
     # torch.var is unbiased by default: the equal rewrite says correction=0
     (VARIANCE["torch_functions_with_dim"], "auto", "torch.var(x, dim=1, keepdim=True, correction=0)"),
     (VARIANCE["torch_methods_and_pow"], "auto", "x.var(dim=0, correction=0)"),
+    # ddof=0 written out: right for ndarrays and for pandas objects (whose default is 1)
+    (VARIANCE["numpy_methods_over_statements"], "auto", "x.var(axis=0, ddof=0)"),
     (VARIANCE["jax_from_import"], "auto", "jnp.var(x, axis=-1)"),
     (VARIANCE["statistics_module_on_lists"], "auto", "statistics.pvariance(xs)"),
     (VARIANCE["numpy_sums_over_size"], "auto", "np.var(x)"),

@@ -124,8 +124,8 @@ def _var_text(ctx: Context, red: facts.Reduction, data: Ref):
         return ("auto", f"{torch}.var({', '.join([x, *words])})", []) if torch else None
     if fw in ("numpy", "jax") and not qual.startswith("keras"):
         words = _axis_words(False, axis, red.keepdims)
-        if oc.is_method:
-            return None if nan else ("auto", f"{paren(x, data.node)}.var({', '.join(words)})", [])
+        if oc.is_method:  # ddof=0 written out: a pandas object's var() defaults to ddof=1
+            return None if nan else ("auto", f"{paren(x, data.node)}.var({', '.join([*words, 'ddof=0'])})", [])
         module = oc.qual.rsplit(".", 1)[0]
         got = function_text(ctx, module, "nanvar" if nan else "var")
         return (("review" if got[1] else "auto"), f"{got[0]}({', '.join([x, *words])})", got[1]) if got else None
