@@ -191,3 +191,14 @@ def test_a_rule_that_raises_makes_a_problem_and_the_other_rules_still_report(mon
     result = scan_source(UNSTABLE, "m.py", Config(rules=frozenset({"broken-rule", "softmax-unshifted"})))
     assert [f.rule for f in result.findings] == ["softmax-unshifted"]
     assert result.problem is not None and "broken-rule" in result.problem.message and "\n" not in result.problem.message
+
+
+def test_a_trigger_that_does_not_start_with_a_literal_is_refused():
+    import ast as _ast
+
+    import pytest
+
+    from nanproof.registry import rule
+
+    with pytest.raises(ValueError, match="literal"):
+        rule("x-test", family="api", severity="note", summary="s", fix=None, nodes=(_ast.Call,), triggers=(r"\w*softmax",))

@@ -923,3 +923,8 @@ def test_python_integer_grid_is_quiet():
 
 def test_variance_inside_a_square_root_is_one_finding():
     assert ids("import numpy as np\ndef s(x):\n    return np.sqrt(np.mean(x**2) - np.mean(x)**2)\n") == ["variance-cancellation"]
+
+
+def test_ignores_entropy_terms_of_positive_constant_fractions():
+    # worked example: the entropy of a 3/5 - 2/5 split has no zero probability in it
+    assert ids("import numpy as np\nH = -(3 / 5) * np.log(3 / 5) - (2 / 5) * np.log(2 / 5)\n") == []

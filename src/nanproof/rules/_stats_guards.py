@@ -10,6 +10,7 @@ from .. import facts
 from ..analyse import Context
 from ..flow import _BLOCK_FIELDS, AMBIGUOUS, Ref, statements_with_paths
 from ..names import OpCall, qualname
+from ..ranges import constant
 from ._stats_shapes import nan_aware
 
 
@@ -159,7 +160,7 @@ def positive(ref: Ref, depth: int = 0) -> bool:
         return False
     s = facts.strip(ref)
     n = s.node
-    c = facts._const(n)
+    c = constant(s)  # 3 / 5, math.e, names bound to constants
     if c is not None:
         return c > 0
     if facts.is_epsilon(s) or facts.unguard(s).node is not n or _counting_from_one(s):
