@@ -130,15 +130,20 @@ class Context:
         when the edits lie elsewhere (a pattern spread over statements)."""
         at = self.node if at is None else at
         span = self.analysis.span(at)
-        line_edits = [e for e in edits if e.span.line != e.span.end_line or e.text.endswith("\n") is False]
-        if all(span.contains(e.span) for e in edits):
-            text = _apply(self.text(at), edits, span.line, span.column)
+        # whole-line edits (an added import, a deleted statement) are not displayed
+        shown = [e for e in edits if not _whole_lines(e)] or list(edits)
+        if all(span.contains(e.span) for e in shown):
+            text = _apply(self.text(at), shown, span.line, span.column)
         else:
-            first = min(e.span.line for e in line_edits or edits)
-            last = max(e.span.end_line for e in line_edits or edits)
+            first = min(e.span.line for e in shown)
+            last = max(e.span.end_line for e in shown)
             raw = "".join(self.analysis.lines[first - 1 : last])
-            text = _apply(raw, [e for e in edits if first <= e.span.line and e.span.end_line <= last], first, 1).strip()
+            text = _apply(raw, shown, first, 1).strip()
         return Fix(kind, text, tuple(edits))
+
+
+def _whole_lines(e: Edit) -> bool:
+    return e.span.column == 1 and e.span.end_column == 1 and (e.text == "" or e.text.endswith("\n"))
 
 
 def _apply(text: str, edits, line0: int, col0: int) -> str:
