@@ -33,28 +33,35 @@ def _excerpt(f: Finding, lines: list[str]) -> list[str]:
     return [gutter + text, " " * 6 + " | " + " " * start + "^" * max(1, end - start)]
 
 
+def _report_lines(result: ScanResult, cache: dict):
+    """Each line of the report as (text, rich style) segments."""
+    for f in result.findings:
+        yield [(f"{f.path}:{f.span.line}:{f.span.column}: ", "bold"), (f.severity, _STYLE.get(f.severity, "")),
+               (f": {f.message} ", ""), (f"[{f.rule}]", "dim")]
+        for line in _excerpt(f, source_lines(f.path, cache)):
+            yield [(line, "red" if "^" in line else "dim")]
+        if f.fix is not None:
+            yield [("       ", ""), (f"fix ({f.fix.kind}):", "green"), (f" {f.fix.replacement}", "")]
+        elif f.suggestion:
+            yield [("       ", ""), ("suggested:", "green"), (f" {f.suggestion}", "")]
+        yield []
+    for p in result.problems:
+        yield [(p.path, "bold"), (": ", ""), ("problem", "magenta"), (f": {p.message}", "")]
+    for line in _summary(result).split("\n"):
+        yield [(line, "")]
+
+
 def render(result: ScanResult, color: bool = False, sources: dict | None = None, **_) -> str:
+    lines = list(_report_lines(result, sources if sources is not None else {}))
+    if not color:  # plain text needs no rich (its import costs ~35 ms per hook run)
+        return "".join("".join(text for text, _ in segments) + "\n" for segments in lines)
     from rich.console import Console
-    from rich.markup import escape
+    from rich.text import Text
 
     out = io.StringIO()
-    console = Console(file=out, force_terminal=color, no_color=not color, highlight=False, soft_wrap=True, width=200)
-    cache: dict = sources if sources is not None else {}
-    for f in result.findings:
-        head = f"{f.path}:{f.span.line}:{f.span.column}: "
-        console.print(
-            f"[bold]{escape(head)}[/][{_STYLE.get(f.severity, '')}]{f.severity}[/]: {escape(f.message)} [dim]\\[{f.rule}][/]"
-        )
-        for line in _excerpt(f, source_lines(f.path, cache)):
-            console.print(escape(line), style="dim" if "^" not in line else "red")
-        if f.fix is not None:
-            console.print(f"       [green]fix ({f.fix.kind}):[/] {escape(f.fix.replacement)}")
-        elif f.suggestion:
-            console.print(f"       [green]suggested:[/] {escape(f.suggestion)}")
-        console.print()
-    for p in result.problems:
-        console.print(f"[bold]{escape(p.path)}[/]: [magenta]problem[/]: {escape(p.message)}")
-    console.print(_summary(result))
+    console = Console(file=out, force_terminal=True, highlight=False, soft_wrap=True, width=200)
+    for segments in lines:
+        console.print(Text.assemble(*segments))
     return out.getvalue()
 
 

@@ -632,7 +632,10 @@ def softmax_implicit_dim(ctx: Context):
         return
     new = add_keyword(ctx.text(call), "dim=-1")
     fix = ctx.fix("review", [ctx.edit(call, new)]) if new else None
-    msg = f"{what} without dim: PyTorch picks the axis implicitly (deprecated), which is the batch axis for 1-D and 3-D inputs; pass dim= explicitly (the rewrite proposes dim=-1)"
+    msg = (
+        f"{what} without dim: PyTorch picks the axis from the input's rank (deprecated), axis 0 for 1-D and 3-D "
+        "inputs, which for a batch of sequences normalises across the batch; pass dim= explicitly (the rewrite proposes dim=-1)"
+    )
     yield Hit(call, msg, fix=fix)
 
 
