@@ -202,3 +202,13 @@ def test_a_trigger_that_does_not_start_with_a_literal_is_refused():
 
     with pytest.raises(ValueError, match="literal"):
         rule("x-test", family="api", severity="note", summary="s", fix=None, nodes=(_ast.Call,), triggers=(r"\w*softmax",))
+
+
+def test_every_rule_module_is_loaded_by_the_registry():
+    import pkgutil
+
+    import nanproof.rules
+    from nanproof.registry import _RULE_MODULES
+
+    on_disk = {m.name for m in pkgutil.iter_modules(nanproof.rules.__path__) if not m.name.startswith("_")}
+    assert on_disk == set(_RULE_MODULES)

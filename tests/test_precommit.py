@@ -10,7 +10,6 @@ session reuses it through one PRE_COMMIT_HOME.
 from __future__ import annotations
 
 import importlib.util
-import os
 import subprocess
 import sys
 from pathlib import Path

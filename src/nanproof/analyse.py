@@ -12,11 +12,11 @@ import gc
 import io
 import re
 import tokenize
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from functools import lru_cache
 from typing import Iterable
 
-from .flow import AMBIGUOUS, Path, Ref, Scope, child_blocks, statements_with_paths
+from .flow import Path, Ref, Scope, child_blocks, statements_with_paths
 from .model import Edit, FileResult, Finding, Fix, Problem, Span
 from .read import physical_lines
 from .registry import Rule

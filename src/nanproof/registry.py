@@ -17,8 +17,9 @@ from typing import Callable, Iterator
 from .model import FIX_KINDS, SEVERITIES
 
 FAMILIES = ("softmax", "loss", "elementary", "statistics", "api")
-# Modules under nanproof/rules/ that declare rules; imported on first use.
-_FAMILY_MODULES = ("softmax", "loss", "elementary", "statistics")
+# Modules under nanproof/rules/ that declare rules (helpers start with "_"); imported
+# on first use.
+_RULE_MODULES = ("softmax", "softmax_jacobian", "cross_entropy", "loss", "elementary", "statistics")
 
 _REGISTRY: dict[str, "Rule"] = {}
 # A letter, digit or underscore, or an escaped punctuation mark, not made optional.
@@ -85,7 +86,7 @@ def _load() -> None:
     global _loaded
     if not _loaded:
         _loaded = True
-        for name in _FAMILY_MODULES:
+        for name in _RULE_MODULES:
             importlib.import_module(f"nanproof.rules.{name}")
 
 

@@ -16,7 +16,7 @@ from ..flow import Ref
 from ..names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import import_edit, paren, reachable, simple
-from .softmax import OVERFLOW, _lines, _names_stable, used_elsewhere
+from ._shared import OVERFLOW, lines_note, names_stable, used_elsewhere
 
 # Half an ulp of 1.0 (numpy.finfo(t).eps / 2, IEEE 754): the digits of x below it are
 # rounded away in 1 + x.
@@ -84,7 +84,7 @@ def _movable(ctx: Context, node: ast.AST, src: Ref) -> bool:
     finding's statement, or it is free of calls and means the same there."""
     if any(n is node for n in ast.walk(ctx.stmt)):
         return True
-    return simple(node) and _names_stable(ctx, node, src)
+    return simple(node) and names_stable(ctx, node, src)
 
 
 # ---------------------------------------------------------------------------------------
@@ -174,7 +174,7 @@ def log1p_manual(ctx: Context):
         return
     sign, cure = ("-", "log1p(-x)") if negated else ("+", "log1p(x)")
     msg = (
-        f"log(1 {sign} x){_lines(ctx, facts.strip(arg).node)}: 1 {sign} x rounds first and drops the digits of x "
+        f"log(1 {sign} x){lines_note(ctx, facts.strip(arg).node)}: 1 {sign} x rounds first and drops the digits of x "
         f"below {ROUNDS_AWAY}, so log(1 + 1e-17) is 0.0 where log1p gives 1e-17; use {cure}"
     )
     fix = _log1p_fix(ctx, oc, arg, x, negated)
@@ -219,7 +219,7 @@ def expm1_manual(ctx: Context):
     negated = parts[1]
     form, cure = ("1 - exp(x)", "-expm1(x)") if negated else ("exp(x) - 1", "expm1(x)")
     msg = (
-        f"{form}{_lines(ctx, exp.node)} cancels when x is small: exp(1e-10) - 1 keeps only about half of its "
+        f"{form}{lines_note(ctx, exp.node)} cancels when x is small: exp(1e-10) - 1 keeps only about half of its "
         f"16 digits in float64, and the difference is 0.0 once |x| is below {ROUNDS_AWAY}; use {cure}"
     )
     fix = None
@@ -276,7 +276,7 @@ def sigmoid_manual(ctx: Context):
         return
     note = _GRADIENT_NOTE if grads and ranges.exp_cannot_overflow(ctx.ref(), ctx.stmt, term.arg, lazy_only=False) else ""
     reciprocal, math = _one(ctx.node.left), _library(oc) == "math"
-    lines = _lines(ctx, term.exp.node)
+    lines = lines_note(ctx, term.exp.node)
     if reciprocal:
         when = f"x falls below -{MATH_OVERFLOW}" if math else "x falls below -88.72 in float32 (-709.78 in float64): a RuntimeWarning, an inf intermediate and a nan gradient under autograd"
         msg = f"hand-written sigmoid 1 / (1 + exp(-x)){lines}: exp(-x) overflows once {when}{note}; use the framework sigmoid"
@@ -342,7 +342,7 @@ def softplus_manual(ctx: Context):
     form = "log(1 + exp(x))" if oc.op == "log" else "log1p(exp(x))"
     when = MATH_OVERFLOW if _library(ec) == "math" else f"{OVERFLOW}, where softplus(x) is about x"
     tail = ", and returns 0.0 below x = -37 in float64 (-17 in float32) where softplus(x) is exp(x)" if oc.op == "log" else ""
-    msg = f"hand-written softplus {form}{_lines(ctx, facts.strip(arg).node)}: exp(x) overflows once x exceeds {when}{tail}{note}"
+    msg = f"hand-written softplus {form}{lines_note(ctx, facts.strip(arg).node)}: exp(x) overflows once x exceeds {when}{tail}{note}"
     code = _softplus_code(ctx, ec, u) if _direct(arg, parts[0]) and _movable(ctx, u.node, u) else None
     fix = _fix(ctx, [ctx.edit(ctx.node, code[0])], code[1], code[2]) if code else None
     suggestion = None if fix else "np.logaddexp(0, x), F.softplus(x), jax.nn.softplus(x), tf.math.softplus(x)"
@@ -369,7 +369,7 @@ def log_exp_roundtrip(ctx: Context):
     x = inner[1]
     if ranges.constant(x) is not None:
         return  # log(exp(2.0)): a constant, evidently in range
-    lines = _lines(ctx, inner[0].call)
+    lines = lines_note(ctx, inner[0].call)
     if got[0].op == "log":
         msg = (
             f"log(exp(x)) is x{lines}, but exp overflows to inf once x exceeds {OVERFLOW}, and underflows to 0 "

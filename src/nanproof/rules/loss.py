@@ -13,8 +13,8 @@ from ..model import Edit, Span
 from ..names import normalise, qualname
 from ..registry import rule
 from ..rewrite import import_edit
-from .logprob import Prob, log_prob, logits_of, logsigmoid_fix, movable, words
-from .softmax import _lines, log_softmax_text
+from ._logprob import Prob, log_prob, logits_of, logsigmoid_fix, movable, words
+from ._shared import lines_note, log_softmax_text
 
 # Where the sigmoid saturates, measured with scipy.special.expit and torch.sigmoid:
 # 1 - sigmoid(x) rounds to 0 from SATURATES on, sigmoid(x) is 0 below UNDERFLOWS.
@@ -57,7 +57,7 @@ def log_of_sigmoid(ctx: Context):
     if p is None or p.origin.kind != "sigmoid" or p.guarded:
         return
     what = "log(1 - s)" if p.complement else "log(s)"
-    msg = f"{what} of {words(p.origin)}{_lines(ctx, p.src.node)}: {_sigmoid_failure(p)}; compute it in log space"
+    msg = f"{what} of {words(p.origin)}{lines_note(ctx, p.src.node)}: {_sigmoid_failure(p)}; compute it in log space"
     yield _log_fix_hit(ctx, p, msg, True, _LOG_SPACE)
 
 
@@ -81,7 +81,7 @@ def log_epsilon_guard(ctx: Context):
     o = p.origin
     space = "log_softmax" if o.kind == "softmax" else "logsigmoid(-x)" if p.complement else "logsigmoid"
     msg = (
-        f"log of {'1 - ' if p.complement else ''}{words(o)} behind an epsilon guard{_lines(ctx, p.src.node)}: where the "
+        f"log of {'1 - ' if p.complement else ''}{words(o)} behind an epsilon guard{lines_note(ctx, p.src.node)}: where the "
         "probability falls to about eps or below, the log sticks near log(eps) (-18.4 for 1e-8), so the loss saturates "
         f"and its gradient vanishes for confidently wrong predictions, and the epsilon biases every term; use {space} "
         "(the rewrite drops the epsilon, so values change where p is near eps)"
@@ -224,7 +224,7 @@ def _api_hit(ctx: Context, api: BCECall) -> Hit | None:
     what = "BCELoss" if api.style == "torch" and api.ctor is not None else "binary cross-entropy"
     better = "binary_cross_entropy_with_logits / BCEWithLogitsLoss" if api.style == "torch" else "from_logits=True"
     why = _TORCH_CLAMP if api.style == "torch" else _KERAS_CLIP
-    msg = f"{what} of {words(o)}{_lines(ctx, inner.node)}: {why}; pass the logits with {better}"
+    msg = f"{what} of {words(o)}{lines_note(ctx, inner.node)}: {why}; pass the logits with {better}"
     fix = _api_fix(ctx, api, p)
     return Hit(ctx.node, msg, fix=fix, suggestion=None if fix else f"pass the logits instead of the sigmoid, with {better}")
 
@@ -333,7 +333,7 @@ def _written_hit(ctx: Context, terms) -> Hit:
         if guarded
         else f"log(1 - s) is -inf once x exceeds {SATURATES} and log(s) once x falls below {UNDERFLOWS}, an inf loss with nan gradients"
     )
-    msg = f"binary cross-entropy of {words(pa.origin)} written out{_lines(ctx, a.node, b.node, pa.src.node)}: {why}; use the with-logits form"
+    msg = f"binary cross-entropy of {words(pa.origin)} written out{lines_note(ctx, a.node, b.node, pa.src.node)}: {why}; use the with-logits form"
     got = [logsigmoid_fix(ctx, p, r, not p.guarded) for r, p in ((a, pa), (b, pb))]
     fix = None
     if all(got):

@@ -28,7 +28,7 @@ from ._stats_shapes import (
     square_terms,
     sum_of_squares,
 )
-from .softmax import _lines, _names_stable, log_softmax_text
+from ._shared import lines_note, log_softmax_text, names_stable
 
 # numpy.finfo(np.float64).eps: each of mean(x**2) and mean(x)**2 is rounded to about this
 # fraction of its size, so their difference keeps no digit once the spread falls below
@@ -73,7 +73,7 @@ def variance_cancellation(ctx: Context):
     if mo is None:
         return
     msg = (
-        f"E[x**2] - E[x]**2{_lines(ctx, mo.second.ref.node, mo.first.ref.node)} cancels catastrophically: each term "
+        f"E[x**2] - E[x]**2{lines_note(ctx, mo.second.ref.node, mo.first.ref.node)} cancels catastrophically: each term "
         f"is rounded to about {_EPS64} of mean(x)**2, so once the mean is large against the spread no correct digit "
         "is left and the result can be negative (data around 1e8 with a spread of 1 in float64); use var(x)"
     )
@@ -85,7 +85,7 @@ def _variance_fix(ctx: Context, mo):
     data = mo.data
     if isinstance(ctx.node, ast.AugAssign):
         return None  # ``v -= m**2``: the fix engine rewrites expressions, not statements
-    if not _names_stable(ctx, data.node, data) or not all(plain_reduction(m.red) for m in (mo.first, mo.second)):
+    if not names_stable(ctx, data.node, data) or not all(plain_reduction(m.red) for m in (mo.first, mo.second)):
         return None
     exact = True
     for m in (mo.second, mo.first):
@@ -187,7 +187,7 @@ def xlogx_nan(ctx: Context):
     if guard is not None and (guard.how == "branch" or guard.framework not in _AUTODIFF):
         return  # a Python branch keeps both value and gradient; NumPy needs only the value
     what = "p * log(p / q)" if x.q is not None else "p * log(p)"
-    where = _lines(ctx, x.log.node)
+    where = lines_note(ctx, x.log.node)
     if x.oc.framework == "math":
         msg = f"{what}{where} raises ValueError (math domain error) at p = 0, where the limit of the term is 0"
     elif guard is not None:
@@ -214,7 +214,7 @@ def _xlogx_fix(ctx: Context, x: XLogX, guard):
     if x.oc.op not in ("log", "log1p"):
         base = x.oc.op[3:]
         return None, f"xlogy(p, p) / log({base}) (scipy.special, torch.xlogy, jax.scipy.special), or -entr(p) / log({base})"
-    if not simple(x.p.node) or (x.q is not None and not _names_stable(ctx, x.q.node, x.q)):
+    if not simple(x.p.node) or (x.q is not None and not names_stable(ctx, x.q.node, x.q)):
         return None, hint
     if guard is not None:
         fix = _where_fix(ctx, x, guard) if guard.word == "where()" else None
@@ -263,7 +263,7 @@ def _xlog1py_text(ctx: Context, x: XLogX, p: str):
     """``(1 - q) * log(1 - q)`` -> ``xlog1py(1 - q, -q)``: zero at q = 1 and, through
     log1p, accurate for small q (what log1p-manual asks of the log alone)."""
     y, minus = x.one_plus
-    if not _names_stable(ctx, y.node, y):
+    if not names_stable(ctx, y.node, y):
         return None
     u = f"-{paren(ctx.text(y.node), y.node)}" if minus else ctx.text(y.node)
     fw = x.oc.framework
@@ -325,7 +325,7 @@ def log_of_product(ctx: Context):
     if exact_integers(data, pc):
         return
     msg = (
-        f"log of a product{_lines(ctx, prod.node)}: the product underflows to 0 and the log to -inf once it falls "
+        f"log of a product{lines_note(ctx, prod.node)}: the product underflows to 0 and the log to -inf once it falls "
         "below the smallest subnormal (4.9e-324 in float64, 1.4e-45 in float32; 1000 probabilities of 0.01 "
         "multiply to 1e-2000), or overflows to inf; sum the logs instead (here -4605.17)"
     )
@@ -334,7 +334,7 @@ def log_of_product(ctx: Context):
 
 
 def _product_fix(ctx: Context, oc: OpCall, pc: OpCall, prod: Ref, data: Ref):
-    if any(k.arg not in _REDUCE_WORDS for k in pc.call.keywords) or not _names_stable(ctx, pc.call, prod):
+    if any(k.arg not in _REDUCE_WORDS for k in pc.call.keywords) or not names_stable(ctx, pc.call, prod):
         return None
     s = ctx.text(data.node)
     log_f = None if oc.is_method else ctx.text(oc.call.func)
@@ -401,14 +401,14 @@ def norm_overflow(ctx: Context):
         if python_ints or any(scaled(t) for t in terms):
             return
         fix = _hypot_fix(ctx, oc, terms)
-        msg = f"sqrt of a sum of squares{_lines(ctx, facts.strip(arg).node)}: {why}; hypot scales instead"
+        msg = f"sqrt of a sum of squares{lines_note(ctx, facts.strip(arg).node)}: {why}; hypot scales instead"
         yield Hit(node, msg, fix=fix, suggestion=None if fix else "hypot(a, b) (numpy.hypot, math.hypot, torch.hypot)")
         return
     vec = sum_of_squares(arg)
     if vec is None or scaled(vec.data):
         return
     msg = (
-        f"sqrt of a sum of squares{_lines(ctx, facts.strip(arg).node)}: {why}; numpy.linalg.norm computes the same "
+        f"sqrt of a sum of squares{lines_note(ctx, facts.strip(arg).node)}: {why}; numpy.linalg.norm computes the same "
         "sum and overflows just the same, where scipy.linalg.norm of a 1-D array (scaled BLAS nrm2) does not"
     )
     fix = _vector_fix(ctx, oc, vec)
@@ -420,7 +420,7 @@ def norm_overflow(ctx: Context):
 
 
 def _hypot_fix(ctx: Context, oc: OpCall | None, terms: list[Ref]):
-    if oc is None or not all(_names_stable(ctx, t.node, t) for t in terms):
+    if oc is None or not all(names_stable(ctx, t.node, t) for t in terms):
         return None
     texts = [ctx.text(t.node) for t in terms]
     if oc.framework == "math":
@@ -445,7 +445,7 @@ def _hypot_fix(ctx: Context, oc: OpCall | None, terms: list[Ref]):
 
 def _vector_fix(ctx: Context, oc: OpCall | None, vec):
     """scipy.linalg.norm for a NumPy vector summed whole; math.hypot(*xs) for a list."""
-    if oc is None or not _names_stable(ctx, vec.data.node, vec.data):
+    if oc is None or not names_stable(ctx, vec.data.node, vec.data):
         return None
     x = ctx.text(vec.data.node)
     red = vec.red

@@ -16,7 +16,7 @@ from ..facts import Origin
 from ..flow import Ref
 from ..names import framework_of, normalise, qualname
 from ..rewrite import atomic, func_prefix, import_edit, module_alias, paren, simple
-from .softmax import _names_stable
+from ._shared import names_stable
 
 
 @dataclass(frozen=True)
@@ -188,7 +188,7 @@ def logits_of(p: Prob) -> Ref | None:
 def movable(ctx: Context, x: Ref, site: Ref) -> bool:
     """The logits may be written at ``site``: they mean the same there, and a call among
     them is moved from inside ``site``, never computed a second time."""
-    if not _names_stable(_at(ctx, site), x.node, x):
+    if not names_stable(_at(ctx, site), x.node, x):
         return False
     return simple(x.node) or any(n is x.node for n in ast.walk(site.node))
 
