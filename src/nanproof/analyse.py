@@ -167,7 +167,7 @@ def _apply(text: str, edits, line0: int, col0: int) -> str:
 # ---------------------------------------------------------------------------------------
 def function_summary(fn_and_owner, depth: int = 0) -> str | None:
     """The kind of value (softmax, sigmoid, ...) every ``return`` of a function gives."""
-    from .facts import origin
+    from .origins import origin
 
     fn, owner = fn_and_owner
     if owner is None:

@@ -14,8 +14,8 @@ import tempfile
 import time
 from dataclasses import dataclass, field, replace
 
-from .api import scan, scan_source, select_rules
 from .analyse import analyse_source
+from .api import scan, scan_source, select_rules
 from .config import Config
 from .edits import Text, Unsafe, apply, carry_lines, choose, forward, place
 from .model import Finding, Problem, ScanResult, Span

@@ -8,9 +8,9 @@ Rules ask these questions to stay quiet where a textbook pattern does no harm:
 from __future__ import annotations
 
 import ast
-import re
 import math
 import operator
+import re
 
 from .facts import MAX_DEPTH, _const, binding_of, bounded_above, nonneg, op, same, strip
 from .flow import AMBIGUOUS, Ref, statements_with_paths

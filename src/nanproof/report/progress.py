@@ -18,7 +18,13 @@ class Bar:
             if time.monotonic() - self.start < self.delay or done >= total:
                 return
             from rich.console import Console
-            from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+            from rich.progress import (
+                BarColumn,
+                MofNCompleteColumn,
+                Progress,
+                TextColumn,
+                TimeRemainingColumn,
+            )
 
             self._progress = Progress(TextColumn("scanning"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), console=Console(stderr=True), transient=True)
             self._progress.start()

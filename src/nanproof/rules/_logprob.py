@@ -10,11 +10,11 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass, replace
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context
-from ..facts import Origin
 from ..flow import Ref
 from ..names import framework_of, normalise, qualname
+from ..origins import Origin
 from ..rewrite import atomic, func_prefix, import_edit, module_alias, paren, simple
 from ._shared import names_stable
 
@@ -47,7 +47,7 @@ def _prob(arg: Ref, negated_arg: bool = False) -> Prob | None:
     if comp is not None:
         inner, g = _peeled(comp)
         guarded = guarded or g
-    o = facts.origin(inner)
+    o = origins.origin(inner)
     if o is None or o.kind not in ("sigmoid", "softmax") or (comp is not None and o.kind != "sigmoid"):
         return None
     return Prob(o, inner, comp is not None, guarded)
@@ -178,7 +178,7 @@ def logits_of(p: Prob) -> Ref | None:
         return None
     callee = facts.strip(src.child(src.node.func))
     if isinstance(callee.node, ast.Attribute):
-        v = facts.self_attribute(callee)
+        v = origins.self_attribute(callee)
         callee = facts.strip(v) if v is not None else callee
     if isinstance(callee.node, ast.Call) and qualname(callee.child(callee.node.func)) in _BARE_SIGMOID:
         return o.logits

@@ -5,11 +5,11 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context
-from ..facts import Origin
 from ..flow import Ref
 from ..names import normalise
+from ..origins import Origin
 from ..rewrite import func_prefix, import_edit, module_alias, operand, simple
 
 # ln of the largest finite float (IEEE 754; numpy.finfo(t).max): where exp overflows.
@@ -107,7 +107,7 @@ def _unshifted(ref: Ref) -> Ref:
 def _hand_written_log_softmax(ctx: Context, o: Origin, src: Ref, logits: Ref) -> tuple[str, list] | None:
     """In the framework of the softmax's own ``exp``: ``torch.log_softmax(u, dim=a)``,
     ``jax.nn.log_softmax(u, axis=a)``, NumPy ``u - np.logaddexp.reduce(u, axis=a, keepdims=True)``."""
-    ms = facts.manual_softmax(src)
+    ms = origins.manual_softmax(src)
     exp = facts.op_of(ms.numerator.exp) if ms is not None else None
     if exp is None:
         return None

@@ -5,14 +5,21 @@ from __future__ import annotations
 import ast
 from dataclasses import replace
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context, Hit
-from ..facts import Origin
 from ..flow import Ref
 from ..names import qualname
+from ..origins import Origin
 from ..registry import rule
-
-from ._shared import UNDERFLOW, lines_note, log_argument, log_of_softmax_fix, log_softmax_text, names_stable, origin_words
+from ._shared import (
+    UNDERFLOW,
+    lines_note,
+    log_argument,
+    log_of_softmax_fix,
+    log_softmax_text,
+    names_stable,
+    origin_words,
+)
 
 
 def gathered(ref: Ref) -> Ref | None:
@@ -43,7 +50,7 @@ def _nll_log(ctx: Context, ref: Ref):
     arg = log_argument(ctx, log_ref.node) if log_ref.scope is ctx.scope else None
     if arg is None:
         return None
-    o = facts.origin(facts.unguard(arg))  # also log(p + eps), log(clip(p, eps, 1 - eps))
+    o = origins.origin(facts.unguard(arg))  # also log(p + eps), log(clip(p, eps, 1 - eps))
     return (log_ref, o) if o is not None and o.kind == "softmax" else None
 
 
@@ -70,7 +77,7 @@ def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
     guarded = src.node is not facts.strip(arg).node
     # A log of gathered entries (p[range(n), y]) has no whole-log rewrite; dropping an
     # epsilon guard changes the values, so that rewrite needs a review.
-    fix = log_of_softmax_fix(ctx, o, src, log_ref.node) if facts.origin(src) is not None else _picked_fix(ctx, o, src, log_ref.node)
+    fix = log_of_softmax_fix(ctx, o, src, log_ref.node) if origins.origin(src) is not None else _picked_fix(ctx, o, src, log_ref.node)
     if fix is not None and guarded:
         fix = replace(fix, kind="review")
     eps = "; an epsilon guard only caps it near -log(eps) and stalls the gradient" if guarded else ""
@@ -97,7 +104,7 @@ def cross_entropy_from_probs(ctx: Context):
         arg = log_argument(ctx)
         if arg is not None:  # log(p[range(n), y]) with p a softmax
             p = gathered(facts.unguard(arg))
-            o = facts.origin(p) if p is not None else None
+            o = origins.origin(p) if p is not None else None
             if o is not None and o.kind == "softmax":
                 yield _ce_hit(ctx, ctx.ref(), o, "cross-entropy on the logits (e.g. F.cross_entropy(logits, y)), or gather from log_softmax")
             return
@@ -125,7 +132,7 @@ def _is_nll(ctx: Context, call: ast.Call) -> bool:
     f = call.func  # nn.NLLLoss()(lp, t) or crit(lp, t) with crit = nn.NLLLoss()
     target = facts.strip(ctx.ref(f))
     if isinstance(target.node, ast.Attribute):
-        v = facts.self_attribute(target)
+        v = origins.self_attribute(target)
         target = facts.strip(v) if v is not None else target
     if isinstance(target.node, ast.Call):
         q = qualname(target.child(target.node.func))

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, ranges
+from .. import facts, origins, ranges
 from ..analyse import Context, Hit
 from ..flow import Ref
 from ..names import OpCall, normalise
@@ -248,10 +248,10 @@ def _sigmoid_code(ctx: Context, oc: OpCall, t: Ref) -> tuple[str, list] | None:
     return None
 
 
-def _sigmoid_exp(ctx: Context) -> facts.ExpTerm:
+def _sigmoid_exp(ctx: Context) -> origins.ExpTerm:
     den = facts.strip(ctx.ref(ctx.node.right))
     other = den.node.right if _one(den.node.left) else den.node.left
-    return facts.exp_term(den.child(other))
+    return origins.exp_term(den.child(other))
 
 
 @rule(
@@ -266,7 +266,7 @@ def _sigmoid_exp(ctx: Context) -> facts.ExpTerm:
 def sigmoid_manual(ctx: Context):
     if not (isinstance(ctx.node, ast.BinOp) and isinstance(ctx.node.op, ast.Div)):
         return
-    t = facts.manual_sigmoid(ctx.ref())
+    t = origins.manual_sigmoid(ctx.ref())
     if t is None:
         return
     term = _sigmoid_exp(ctx)

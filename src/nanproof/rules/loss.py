@@ -6,7 +6,7 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context, Hit, scope_for
 from ..flow import Ref, statements_with_paths
 from ..model import Edit, Span
@@ -165,7 +165,7 @@ def bce_call(ref: Ref) -> BCECall | None:
         return BCECall(style, prob, None) if prob is not None else None
     ctor = facts.strip(ref.child(call.func))
     if isinstance(ctor.node, ast.Attribute):
-        v = facts.self_attribute(ctor)
+        v = origins.self_attribute(ctor)
         ctor = facts.strip(v) if v is not None else ctor
     style = _ctor_style(ctor)
     if style is None:
@@ -215,7 +215,7 @@ _TORCH_CLAMP = (f"once 1 - sigmoid(x) rounds to 0 (x above {SATURATES}) or sigmo
 def _api_hit(ctx: Context, api: BCECall) -> Hit | None:
     pref = ctx.ref(api.prob)
     inner = facts.unguard(pref)
-    o = facts.origin(inner)
+    o = origins.origin(inner)
     if o is None or o.kind != "sigmoid":
         return None
     p = Prob(o, inner, False, inner.node is not facts.strip(pref).node)
@@ -261,7 +261,7 @@ def _criterion_uses(ctx: Context):
             f = call.func
             if not (isinstance(f, ast.Attribute) and f.attr == t.attr):
                 return False
-            v = facts.self_attribute(Ref(f, scope, path))
+            v = origins.self_attribute(Ref(f, scope, path))
             return v is not None and v.node is ctx.node
     else:
         return

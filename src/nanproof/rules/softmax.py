@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context, Hit
-from ..facts import ManualSoftmax, Reduction
+from ..facts import Reduction
 from ..flow import Ref
 from ..names import OpCall, normalise, qualname
+from ..origins import ManualSoftmax
 from ..registry import rule
 from ..rewrite import add_keyword, func_prefix, module_alias, operand, paren, simple
-
 from ._shared import (
     OVERFLOW,
     UNDERFLOW,
@@ -72,7 +72,7 @@ def _shift_edit(ctx: Context, exp_ref: Ref, red: Reduction):
 
 def _softmax_fix(ctx: Context, sm: ManualSoftmax, num_ref: Ref):
     exps = [sm.numerator.exp]
-    den_term = facts.exp_term(sm.denominator.operand)
+    den_term = origins.exp_term(sm.denominator.operand)
     if den_term is not None and den_term.exp.node is not sm.numerator.exp.node:
         exps.append(den_term.exp)
     edits = []
@@ -99,7 +99,7 @@ def softmax_unshifted(ctx: Context):
     if parts is None:
         return
     div, num, den = parts
-    sm = facts.softmax_parts(div, num, den)
+    sm = origins.softmax_parts(div, num, den)
     if sm is None or facts.exp_is_safe(sm.numerator.arg):
         return
     mask = ""
@@ -175,7 +175,7 @@ def normalize_missing_keepdims(ctx: Context):
     red = facts.reduction(den, "sum", "max", "mean", "norm")
     if red is None or red.keepdims or red.axis is None or not _inner_axis(red):
         return
-    t = facts.exp_term(num)
+    t = origins.exp_term(num)
     if not (facts.same(red.operand, num) or (t is not None and facts.same(red.operand, t.exp))):
         return
     torch_style = red.call.framework == "torch" or (red.call.is_method and any(k.arg == "dim" for k in red.call.call.keywords))
@@ -207,7 +207,7 @@ def log_of_softmax(ctx: Context):
     arg = log_argument(ctx)
     if arg is None:
         return
-    o = facts.origin(arg)
+    o = origins.origin(arg)
     if o is None or o.kind != "softmax":
         return
     src = facts.strip(arg)
@@ -235,21 +235,21 @@ def max_shifted(ref: Ref) -> bool:
     return False
 
 
-def _lse_terms(ref: Ref) -> tuple[Reduction, facts.ExpTerm] | None:
+def _lse_terms(ref: Ref) -> tuple[Reduction, origins.ExpTerm] | None:
     red = facts.reduction(ref, "sum")
     if red is None:
         return None
     op_node = facts.strip(red.operand).node
     if isinstance(op_node, (ast.GeneratorExp, ast.ListComp)):
-        t = facts.exp_term(red.operand.child(op_node.elt))
+        t = origins.exp_term(red.operand.child(op_node.elt))
     else:
-        t = facts.exp_term(red.operand)
+        t = origins.exp_term(red.operand)
     if t is None or t.masked:
         return None
     return red, t
 
 
-def _lse_text(ctx: Context, red: Reduction, t: facts.ExpTerm) -> tuple[str, str] | None:
+def _lse_text(ctx: Context, red: Reduction, t: origins.ExpTerm) -> tuple[str, str] | None:
     """(kind, code) of the framework log-sum-exp for this sum of exps."""
     oc = facts.op_of(t.exp)
     u_node = oc.subject if oc is not None else None
@@ -329,7 +329,7 @@ def logaddexp_manual(ctx: Context):
     s = facts.strip(arg)
     if not (isinstance(s.node, ast.BinOp) and isinstance(s.node.op, ast.Add)):
         return
-    ta, tb = facts.exp_term(s.child(s.node.left)), facts.exp_term(s.child(s.node.right))
+    ta, tb = origins.exp_term(s.child(s.node.left)), origins.exp_term(s.child(s.node.right))
     if ta is None or tb is None or ta.masked or tb.masked:
         return
     if all(max_shifted(t.arg) or facts.shifted_by_unknown(t.arg) for t in (ta, tb)):

@@ -3,13 +3,12 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context, Hit
 from ..flow import Ref
 from ..names import OpCall, normalise, qualname
 from ..registry import rule
 from ..rewrite import func_prefix, paren, simple
-
 from ._shared import lines_note
 
 
@@ -167,7 +166,7 @@ def _jacobian_fix(ctx: Context, y: Ref, builder: OpCall | None):
 
 
 def _needs_flag(ctx: Context, y: Ref) -> bool:
-    o = facts.origin(y)
+    o = origins.origin(y)
     if o is not None and o.kind == "softmax":
         return True
     if _gradient_function(ctx):
@@ -239,7 +238,7 @@ def _loop_jacobian(ctx: Context):
     y = _jacobian_entry(ctx, stmt.value, i, j)
     if y is None:
         return
-    o = facts.origin(y)
+    o = origins.origin(y)
     used = isinstance(matrix, ast.Name) and any(_product_around(ctx, load) for load in ctx.scope.loads(matrix.id))
     if not (used or (o is not None and o.kind == "softmax") or _gradient_function(ctx)):
         return
@@ -311,12 +310,12 @@ def _is_softmax_callable(ctx: Context, f: Ref) -> bool:
 
         if q and OP_BY_NAME.get(normalise(q)) == "softmax":
             return True
-        return facts.returns_kind(s) == "softmax"
+        return origins.returns_kind(s) == "softmax"
     if isinstance(node, ast.Lambda):
         from ..analyse import scope_for
 
         inner = Ref(node.body, scope_for(node, s.scope), ())
-        o = facts.origin(inner)
+        o = origins.origin(inner)
         return o is not None and o.kind == "softmax"
     if isinstance(node, ast.Call):  # functools.partial(F.softmax, dim=-1)
         q = qualname(s.child(node.func)) if isinstance(node.func, (ast.Name, ast.Attribute)) else None

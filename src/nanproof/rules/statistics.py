@@ -8,13 +8,22 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts
+from .. import facts, origins
 from ..analyse import Context, Hit
 from ..flow import Ref
 from ..names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import func_prefix, module_alias, paren, simple
-from ._stats_guards import XLogX, expression_guard, filtered, needs_parens, positive, statement_guard, xlogx_parts
+from ._shared import lines_note, log_softmax_text, names_stable
+from ._stats_guards import (
+    XLogX,
+    expression_guard,
+    filtered,
+    needs_parens,
+    positive,
+    statement_guard,
+    xlogx_parts,
+)
 from ._stats_shapes import (
     count_matches,
     evident_int,
@@ -28,7 +37,6 @@ from ._stats_shapes import (
     square_terms,
     sum_of_squares,
 )
-from ._shared import lines_note, log_softmax_text, names_stable
 
 # numpy.finfo(np.float64).eps: each of mean(x**2) and mean(x)**2 is rounded to about this
 # fraction of its size, so their difference keeps no digit once the spread falls below
@@ -202,7 +210,7 @@ def xlogx_nan(ctx: Context):
 
 
 def _xlogx_fix(ctx: Context, x: XLogX, guard):
-    origin = facts.origin(x.p) if x.q is None and x.oc.op == "log" else None
+    origin = origins.origin(x.p) if x.q is None and x.oc.op == "log" else None
     if origin is not None and origin.kind == "softmax":
         got = log_softmax_text(ctx, origin, facts.strip(x.p))
         if got is not None:  # log_softmax keeps value and gradient finite
