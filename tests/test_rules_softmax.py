@@ -536,3 +536,47 @@ def test_log_softmax_import_is_not_added_when_the_name_is_taken():
             return np.log(softmax(x, axis=1)) + log_softmax
     """)
     assert [(f.rule, f.fix) for f in got] == [("log-of-softmax", None)]
+
+
+def test_flags_likelihood_of_probabilities_a_method_keeps_on_self():
+    src = """
+        import numpy as np
+        class Net:
+            def forward(self, X):
+                scores = X @ self.W
+                e = np.exp(scores - scores.max(axis=1, keepdims=True))
+                self.probs = e / np.sum(e, axis=1, keepdims=True)
+                return self.probs
+
+            def loss(self, X, y):
+                probs = self.forward(X)
+                return -np.log(probs[range(len(y)), y]).mean()
+    """
+    assert ids(src) == ["cross-entropy-from-probs"]
+
+
+def test_an_attribute_set_in_two_places_is_not_taken_for_a_softmax():
+    src = """
+        import numpy as np
+        class Net:
+            def forward(self, X):
+                e = np.exp(X - X.max())
+                self.out = e / e.sum()
+                return self.out
+
+            def reset(self):
+                self.out = np.ones(3)
+
+            def loss(self, y):
+                return -np.log(self.out[y])
+    """
+    assert ids(src) == []
+
+
+def test_keepdims_fix_is_withheld_where_the_array_may_be_a_pandas_frame():
+    (f,) = findings("""
+        import pandas as pd
+        def shares(df):
+            return df / df.sum(axis=1)
+    """)
+    assert f.rule == "normalize-missing-keepdims" and f.fix is None and ".div(" in f.suggestion

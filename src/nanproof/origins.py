@@ -120,6 +120,9 @@ def origin(ref: Ref, depth: int = 0) -> Origin | None:
 def _origin(ref: Ref, depth: int) -> Origin | None:
     node = ref.node
     line = getattr(node, "lineno", 0)
+    if isinstance(node, ast.Attribute):  # self.probs, set once in some method
+        value = self_attribute(ref)
+        return origin(value, depth + 1) if value is not None else None
     oc = op_of(ref)
     if oc is not None:
         kind = _OP_KIND.get(oc.op)

@@ -184,12 +184,16 @@ def normalize_missing_keepdims(ctx: Context):
     kw = "keepdim=True" if torch_style else "keepdims=True"
     call = red.call.call
     new = add_keyword(ctx.text(call), kw)
-    fix = ctx.fix("auto", [ctx.edit(call, new)], at=call) if new else None
+    # a pandas DataFrame has no keepdims: the method may be pandas' when the file uses it
+    frame = red.call.is_method and module_alias(ctx.ref(), "pandas") is not None
+    fix = ctx.fix("auto", [ctx.edit(call, new)], at=call) if new and not frame else None
     msg = (
         f"{red.op} over axis {ctx.text(red.axis)} drops that axis, so the division broadcasts it against the wrong "
         f"one{lines_note(ctx, call)}: a shape error, or silently wrong values for a square matrix; pass {kw}"
     )
-    yield Hit(ctx.node, msg, fix=fix)
+    hint = f"pass {kw} (NumPy, PyTorch), or for a pandas DataFrame divide with .div(..., axis=0)" if frame else None
+    yield Hit(ctx.node, msg, fix=fix, suggestion=hint)
+
 
 # ---------------------------------------------------------------------------------------
 # log-of-softmax
