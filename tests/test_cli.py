@@ -236,3 +236,21 @@ def test_changed_since_bad_revision_or_no_repository_exits_2(tmp_path, monkeypat
     monkeypatch.setenv("GIT_CEILING_DIRECTORIES", str(tmp_path))
     result = run("scan", str(plain), "--changed-since", "HEAD")
     assert result.exit_code == 2 and "not inside a git repository" in result.stderr
+
+
+def test_a_one_file_hook_run_imports_neither_libcst_nor_rich_nor_a_process_pool(tmp_path):
+    # the pre-commit case: start-up cost is what the user waits for on every commit
+    import subprocess
+    import sys
+
+    f = tmp_path / "m.py"
+    f.write_text("import numpy as np\ndef f(z):\n    return np.exp(z) / np.sum(np.exp(z))\n")
+    probe = (
+        "import sys\nfrom nanproof.cli import main\nsys.argv = ['nanproof', 'scan', sys.argv[1]]\n"
+        "try:\n    main()\nexcept SystemExit as e:\n    code = e.code\n"
+        "heavy = sorted({m.split('.')[0] for m in sys.modules if m.split('.')[0] in ('libcst', 'rich', 'multiprocessing', 'concurrent')})\n"
+        "print('HEAVY', heavy, code, file=sys.stderr)\n"
+    )
+    done = subprocess.run([sys.executable, "-c", probe, str(f)], capture_output=True, text=True, timeout=60)
+    assert "softmax-unshifted" in done.stdout
+    assert "HEAVY [] 1" in done.stderr
