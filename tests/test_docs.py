@@ -32,3 +32,16 @@ def test_readme_states_the_results_warning_of_fix():
 
     flat = " ".join(README.replace("**", "").split())
     assert " ".join(WARNING.split()) in flat
+
+
+def test_the_wheel_ships_every_rule_page(tmp_path):
+    import subprocess
+    import sys
+    import zipfile
+
+    root = Path(__file__).resolve().parents[1]
+    subprocess.run([sys.executable, "-m", "pip", "wheel", "-q", "--no-deps", "-w", str(tmp_path), str(root)], check=True, capture_output=True, timeout=600)
+    (wheel,) = tmp_path.glob("nanproof-*.whl")
+    names = zipfile.ZipFile(wheel).namelist()
+    shipped = {n.rsplit("/", 1)[1][:-3] for n in names if n.startswith("nanproof/pages/") and n.endswith(".md")}
+    assert shipped == {r.id for r in all_rules()}
