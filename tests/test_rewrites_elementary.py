@@ -1,18 +1,15 @@
 """The elementary-family rewrites, proven numerically through the fix engine: equal to
 the original on ordinary inputs; finite and accurate where the original overflows or
 cancels, measured in ulps against mpmath at 50 digits and against outside references."""
-import ast
 import math
-import textwrap
 
 import mpmath
 import numpy as np
 import pytest
 import scipy.special
 
+import harness
 from harness import load
-from nanproof.api import scan_source
-from nanproof.fix import fix_bytes
 
 try:
     import torch
@@ -29,17 +26,8 @@ SMALL = np.concatenate([np.logspace(-20, -1, 120), -np.logspace(-20, -1, 120)])
 
 def fixed(src: str, rule: str, kind: str = "auto") -> str:
     """The source after ``nanproof fix`` (``--include-review`` for a review fix); the
-    rule's findings all offered a fix of ``kind``, and none is reported afterwards."""
-    src = textwrap.dedent(src)
-    before = [f for f in scan_source(src).findings if f.rule == rule]
-    assert before and all(f.fix is not None and f.fix.kind == kind for f in before), before
-    result = fix_bytes(src.encode(), include_review=kind == "review")
-    assert not result.left.problems, result.left.problems
-    (change,) = result.changes
-    out = change.after.decode()
-    ast.parse(out)
-    assert rule not in [f.rule for f in scan_source(out).findings], out
-    return out
+    rule's findings all offered a fix of ``kind``."""
+    return harness.fixed(src, rule, include_review=kind == "review", kind=kind)
 
 
 def both(src, rule, name, kind="auto"):

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 import scipy.special
 
-from harness import fixed, load
+from harness import both, fixed, load
 
 try:
     import torch
@@ -27,8 +27,6 @@ assert np.log(np.finfo(np.float64).max) < 710
 SWEEP = np.linspace(-30.0, 45.0, 601)
 
 
-def both(src, rule, name, include_review=False):
-    return load(src, name), load(fixed(src, rule, include_review), name)
 
 
 # -- mpmath references at 50 digits --------------------------------------------------------

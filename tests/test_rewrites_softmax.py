@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import scipy.special
 
-from harness import fixed, load
+from harness import both, fixed, load
 
 try:
     import torch
@@ -17,8 +17,6 @@ EXTREME = np.array([[1000.0, 0.0, -5.0], [800.0, 799.0, 10.0]])
 assert np.log(np.finfo(np.float64).max) < 800
 
 
-def both(src, rule, name, include_review=False):
-    return load(src, name), load(fixed(src, rule, include_review), name)
 
 
 def test_shifted_softmax_matches_scipy_and_survives_large_logits():

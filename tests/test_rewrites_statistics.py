@@ -13,7 +13,7 @@ import scipy.linalg
 import scipy.special
 
 import test_rules_statistics as cases
-from harness import fixed, load
+from harness import both, fixed, load
 from nanproof.fix import fix_bytes
 
 try:
@@ -25,8 +25,6 @@ needs_torch = pytest.mark.skipif(torch is None, reason="needs torch")
 mpmath.mp.dps = 50
 
 
-def both(src, rule, name, include_review=False):
-    return load(src, name), load(fixed(src, rule, include_review), name)
 
 
 def ulp_error(got, exact) -> float:
