@@ -45,3 +45,15 @@ def test_the_wheel_ships_every_rule_page(tmp_path):
     names = zipfile.ZipFile(wheel).namelist()
     shipped = {n.rsplit("/", 1)[1][:-3] for n in names if n.startswith("nanproof/pages/") and n.endswith(".md")}
     assert shipped == {r.id for r in all_rules()}
+
+
+def test_the_demo_tree_shows_every_family_and_its_stable_file_is_clean():
+    from nanproof.api import scan
+    from nanproof.config import Config
+    from nanproof.registry import get
+
+    demo = Path(__file__).resolve().parents[1] / "fixtures" / "auklet_survey"
+    result = scan([str(demo)], Config(jobs=1))
+    assert {get(f.rule).family for f in result.findings} == {"softmax", "loss", "elementary", "statistics", "api"}
+    assert not [f for f in result.findings if f.path.endswith("stable.py")]
+    assert result.problems == ()
