@@ -953,3 +953,11 @@ def test_a_where_threshold_without_a_literal_still_guards_numpy_values():
 ])
 def test_ignores_log_of_one_plus_a_conventional_count_name(src):
     assert "log1p-manual" not in ids(src)
+
+
+@pytest.mark.parametrize("src", [
+    "import torch\ndef lae(a, b):\n    lo, hi = torch.minimum(a, b), torch.maximum(a, b)\n    return hi + torch.log1p(torch.exp(lo - hi))\n",
+    "import numpy as np\ndef lae(a, b):\n    m = np.maximum(a, b)\n    return m + np.log1p(np.exp(b - m))\n",
+])
+def test_ignores_the_shifted_two_term_log_add_exp(src):
+    assert [r for r in ids(src) if r in ("softplus-manual", "log1p-manual")] == []

@@ -310,7 +310,9 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
             if m is not None and same(m, l):  # x - max(x)
                 return True
             lr = reduction(l, "min")  # min(x) - x
-            return lr is not None and same(lr.operand, r)
+            if lr is not None and same(lr.operand, r):
+                return True
+            return _below_elementwise_max(l, r)
         if isinstance(node.op, (ast.Mult, ast.Div)):
             (sl, kl), (sr, kr) = _factor_sign(l, depth + 1), _factor_sign(r, depth + 1)
             return sl * sr < 0 and (kl or kr)
@@ -324,6 +326,27 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
 
             return kind_of(ref.child(oc.subject)) in ("softmax", "sigmoid") if oc.subject is not None else False
     return False
+
+
+def _pairwise(ref: Ref, op_name: str) -> list[Ref] | None:
+    """The two arguments of ``maximum(a, b)`` / ``max(a, b)`` (or the minimum)."""
+    oc = op_of(strip(ref))
+    builtin = {"maximum": "max", "minimum": "min"}[op_name]
+    if oc is None or len(oc.call.args) != 2 or not (oc.op == op_name or (oc.framework == "builtins" and oc.op == builtin)):
+        return None
+    return [ref.child(a) for a in oc.call.args]
+
+
+def _below_elementwise_max(l: Ref, r: Ref) -> bool:
+    """``a - maximum(a, b)`` and ``minimum(a, b) - maximum(a, b)`` are at most 0: the
+    shift of a two-term log-add-exp."""
+    top = _pairwise(r, "maximum")
+    if top is None:
+        return False
+    low = _pairwise(l, "minimum")
+    if low is not None:
+        return {key(x) for x in low} == {key(x) for x in top}
+    return any(same(l, x) for x in top)
 
 
 def _factor_sign(ref: Ref, depth: int) -> tuple[int, bool]:
