@@ -9,19 +9,17 @@ from __future__ import annotations
 import ast
 import bisect
 import gc
-import io
 import re
-import tokenize
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Iterable
 
+from .decisions import precedence, silenced, suppressions
 from .flow import Path, Ref, Scope, child_blocks, statements_with_paths
 from .model import Edit, FileResult, Finding, Fix, Problem, Span
 from .read import physical_lines
 from .registry import Rule
 
-_SUPPRESS = re.compile(r"#\s*nanproof:\s*allow(-file)?(?:\[([^\]]*)\])?")
 _PY2_HINTS = re.compile(r"^\s*(print\s+[\"'\w]|exec\s+[\"'\w]|except\s+\w+\s*,\s*\w+\s*:)", re.M)
 
 
@@ -316,63 +314,6 @@ def _walk(analysis: Analysis, dispatch: dict, lines: set[int], errors: list[str]
     return hits
 
 
-# ---------------------------------------------------------------------------------------
-# Decisions that apply to every rule
-# ---------------------------------------------------------------------------------------
-def _suppressions(text: str) -> tuple[dict[int, set[str] | None], set[str] | None]:
-    """Line -> rule ids silenced there (None: all), and the file-wide set (None: all)."""
-    per_line: dict[int, set[str] | None] = {}
-    whole: set[str] | None = set()
-    if "nanproof:" not in text:
-        return per_line, whole
-    try:
-        tokens = list(tokenize.generate_tokens(io.StringIO(text).readline))
-    except (tokenize.TokenError, SyntaxError, IndentationError):
-        return per_line, whole
-    for tok in tokens:
-        if tok.type != tokenize.COMMENT:
-            continue
-        m = _SUPPRESS.search(tok.string)
-        if not m:
-            continue
-        ids = None if m.group(2) is None else {x.strip() for x in m.group(2).split(",") if x.strip()}
-        if m.group(1):  # allow-file: on a line of its own
-            if tok.line.strip().startswith("#"):
-                whole = None if ids is None or whole is None else whole | ids
-        else:
-            line = tok.start[0]
-            prev = per_line.get(line, set())
-            per_line[line] = None if ids is None or prev is None else prev | ids
-    return per_line, whole
-
-
-def _silenced(f: Finding, per_line, whole) -> bool:
-    if whole is None or f.rule in whole:
-        return True
-    for line in {f.statement_line, f.span.line}:
-        if line in per_line and (per_line[line] is None or f.rule in per_line[line]):
-            return True
-    return False
-
-
-def _precedence(findings: list[Finding], rules: dict[str, Rule]) -> list[Finding]:
-    kept = []
-    for f in findings:
-        beaten = False
-        for g in findings:
-            if g is f or f.rule not in rules[g.rule].overrides:
-                continue
-            if g.span.contains(f.span) or any(c.contains(f.span) for c in g.covers):
-                beaten = True
-                break
-        if not beaten:
-            kept.append(f)
-    unique = {}
-    for f in kept:
-        unique.setdefault((f.rule, f.span), f)
-    return list(unique.values())
-
-
 def _not_python3(path: str, text: str, err: SyntaxError) -> Problem:
     where = f" (line {err.lineno})" if err.lineno else ""
     hint = "; looks like Python 2 code" if _PY2_HINTS.search(text) else ""
@@ -425,8 +366,8 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
         analysis.release()
     problem = Problem(path, errors[0] + (f" (and {len(errors) - 1} more)" if len(errors) > 1 else "")) if errors else None
     by_id = {r.id: r for r in rules}
-    per_line, whole = _suppressions(text)
-    findings = [f for f in _precedence(findings, by_id) if not _silenced(f, per_line, whole)]
+    per_line, whole = suppressions(text)
+    findings = [f for f in precedence(findings, by_id) if not silenced(f, per_line, whole)]
     findings.sort(key=Finding.sort_key)
     return FileResult(path, tuple(findings), problem=problem, exports=exports, imports=imports)
 
