@@ -580,3 +580,30 @@ def test_keepdims_fix_is_withheld_where_the_array_may_be_a_pandas_frame():
             return df / df.sum(axis=1)
     """)
     assert f.rule == "normalize-missing-keepdims" and f.fix is None and ".div(" in f.suggestion
+
+
+@pytest.mark.parametrize("src", [
+    "import tensorflow as tf\ndef f(x, t):\n    return tf.keras.losses.categorical_crossentropy(t, tf.nn.softmax(x))\n",
+    "import tensorflow as tf\ndef f(x, y):\n    p = tf.nn.softmax(x, axis=-1)\n    loss = tf.keras.losses.SparseCategoricalCrossentropy()\n    return loss(y, p)\n",
+    "from tensorflow import keras\nimport numpy as np\ndef f(z, t):\n    e = np.exp(z - z.max(axis=1, keepdims=True))\n    return keras.losses.categorical_crossentropy(t, e / e.sum(axis=1, keepdims=True))\n",
+])
+def test_flags_keras_cross_entropy_of_explicit_softmax_probabilities(src):
+    assert "cross-entropy-from-probs" in ids(src)
+
+
+@pytest.mark.parametrize("src", [
+    "import tensorflow as tf\ndef f(x, t):\n    return tf.keras.losses.categorical_crossentropy(t, x, from_logits=True)\n",
+    "import tensorflow as tf\ndef f(h, t):\n    out = tf.keras.layers.Dense(10, activation='softmax')(h)\n    return tf.keras.losses.categorical_crossentropy(t, out)\n",
+    "import tensorflow as tf\ndef f(x, t):\n    return tf.keras.losses.categorical_crossentropy(t, tf.nn.softmax(x), from_logits=False, **{})\n",
+])
+def test_ignores_keras_losses_on_logits_or_on_softmax_layers(src):
+    assert "cross-entropy-from-probs" not in ids(src)
+
+
+def test_keras_cross_entropy_is_found_when_it_is_the_only_rule_run():
+    from nanproof.api import scan_source
+    from nanproof.config import Config
+
+    src = "import tensorflow as tf\nfrom mylib import probs\ndef f(x, t):\n    return tf.keras.losses.categorical_crossentropy(t, tf.nn.softmax(x))\n"
+    got = scan_source(src, "m.py", Config(rules=frozenset({"cross-entropy-from-probs"}))).findings
+    assert [f.rule for f in got] == ["cross-entropy-from-probs"]

@@ -8,7 +8,7 @@ import ast
 from .. import facts, origins
 from ..analyse import Context
 from ..flow import Ref
-from ..names import normalise
+from ..names import normalise, qualname
 from ..origins import Origin
 from ..rewrite import func_prefix, import_edit, module_alias, operand, simple
 
@@ -141,3 +141,27 @@ def origin_words(o: Origin) -> str:
             "module": "a softmax module", "layer": "a layer with a softmax activation"}[o.how]
 
 
+# -- framework loss calls ------------------------------------------------------------
+def loss_qual(ref: Ref) -> str | None:
+    """The normalised name of a loss function or class (Keras spellings folded)."""
+    q = qualname(ref) if isinstance(ref.node, (ast.Name, ast.Attribute)) else None
+    for _ in range(3):  # tensorflow.compat.v1.keras.losses -> tensorflow.keras.losses -> keras.losses
+        q = normalise(q) if q else q
+    return q
+
+
+def passed_arg(call: ast.Call, pos: int, *names: str) -> ast.expr | None:
+    for kw in call.keywords:
+        if kw.arg in names:
+            return kw.value
+    if any(isinstance(a, ast.Starred) for a in call.args[: pos + 1]):
+        return None
+    return call.args[pos] if pos < len(call.args) else None
+
+
+def from_logits_off(call: ast.Call, pos: int) -> bool:
+    """``from_logits`` is not passed, or passed as False (Keras)."""
+    if any(kw.arg is None for kw in call.keywords):
+        return False  # **kwargs may hold it
+    v = passed_arg(call, pos, "from_logits")
+    return v is None or (isinstance(v, ast.Constant) and v.value is False)

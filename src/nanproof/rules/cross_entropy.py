@@ -8,17 +8,20 @@ from dataclasses import replace
 from .. import facts, origins
 from ..analyse import Context, Hit
 from ..flow import Ref
-from ..names import qualname
+from ..names import normalise, qualname
 from ..origins import Origin
 from ..registry import rule
 from ._shared import (
     UNDERFLOW,
+    from_logits_off,
     lines_note,
     log_argument,
     log_of_softmax_fix,
     log_softmax_text,
+    loss_qual,
     names_stable,
     origin_words,
+    passed_arg,
 )
 
 
@@ -95,7 +98,8 @@ def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
     summary="negative log-likelihood computed from softmax probabilities: use cross-entropy on logits",
     fix="auto",
     nodes=(ast.Call, ast.BinOp, ast.Subscript),
-    triggers=(r"log\s*\(", r"nll_loss\s*\(", r"NLLLoss\s*\("),
+    triggers=(r"log\s*\(", r"nll_loss\s*\(", r"NLLLoss\s*\(", r"categorical_crossentropy\s*\(",
+              r"sparse_categorical_crossentropy\s*\(", r"CategoricalCrossentropy\s*\(", r"SparseCategoricalCrossentropy\s*\("),
     overrides=("log-of-softmax", "log-epsilon-guard"),
 )
 def cross_entropy_from_probs(ctx: Context):
@@ -112,6 +116,8 @@ def cross_entropy_from_probs(ctx: Context):
             got = _nll_log(ctx, ctx.ref(node.args[0]))
             if got:
                 yield _ce_hit(ctx, got[0], got[1], "F.cross_entropy(logits, target) on the logits")
+            return
+        yield from _keras_probability_loss(ctx, node)
         return
     if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Mult):
         for a, b in ((node.left, node.right), (node.right, node.left)):
@@ -144,3 +150,39 @@ def _is_same_probs(ctx: Context, other: ast.AST, log_ref: Ref) -> bool:
     """``p * log(p)`` is an entropy term, not a likelihood."""
     arg = log_argument(ctx, log_ref.node)
     return arg is not None and facts.same(ctx.ref(other), facts.unguard(arg))
+
+
+# Keras losses that take probabilities unless from_logits=True: (y_true, y_pred).
+_KERAS_CE = {"keras.losses.categorical_crossentropy", "keras.losses.sparse_categorical_crossentropy",
+             "keras.backend.categorical_crossentropy", "keras.backend.sparse_categorical_crossentropy",
+             "keras.metrics.categorical_crossentropy", "keras.metrics.sparse_categorical_crossentropy"}
+_KERAS_CE_CLASSES = {"keras.losses.CategoricalCrossentropy", "keras.losses.SparseCategoricalCrossentropy"}
+
+
+def _keras_probability_loss(ctx: Context, call: ast.Call):
+    """``categorical_crossentropy(t, tf.nn.softmax(x))`` and
+    ``CategoricalCrossentropy()(t, p)`` without ``from_logits=True``. A softmax layer or
+    activation is left alone: Keras recovers its logits for these losses (from memory of
+    the Keras activations; not checked here, TensorFlow is not installed)."""
+    q = loss_qual(ctx.ref(call.func))
+    if q in _KERAS_CE:
+        if not from_logits_off(call, 2):
+            return
+    else:
+        ctor = facts.strip(ctx.ref(call.func))
+        if not isinstance(ctor.node, ast.Call) or loss_qual(ctor.child(ctor.node.func)) not in _KERAS_CE_CLASSES:
+            return
+        if not from_logits_off(ctor.node, 0):
+            return
+    pred = passed_arg(call, 1, "y_pred", "output")
+    o = origins.origin(ctx.ref(pred)) if pred is not None else None
+    if o is None or o.kind != "softmax" or o.how in ("module", "layer"):
+        return
+    if o.call is not None and o.call.qual and normalise(o.call.qual).startswith("nn.") and "keras" in o.call.qual:
+        return  # keras.activations.softmax: Keras keeps its logits
+    msg = (
+        f"Keras cross-entropy of softmax probabilities{lines_note(ctx, facts.strip(ctx.ref(pred)).node)}: the loss clips "
+        "them to [1e-7, 1 - 1e-7], so a confident wrong prediction costs at most 16.1 and its gradient vanishes; "
+        "pass the logits with from_logits=True"
+    )
+    yield Hit(call, msg, suggestion="the same loss on the logits with from_logits=True")

@@ -10,11 +10,16 @@ from .. import facts, origins
 from ..analyse import Context, Hit, scope_for
 from ..flow import Ref, statements_with_paths
 from ..model import Edit, Span
-from ..names import normalise, qualname
 from ..registry import rule
 from ..rewrite import import_edit
 from ._logprob import Prob, log_prob, logits_of, logsigmoid_fix, movable, words
-from ._shared import lines_note, log_softmax_text
+from ._shared import (
+    from_logits_off,
+    lines_note,
+    log_softmax_text,
+    loss_qual,
+    passed_arg,
+)
 
 # Where the sigmoid saturates, measured with scipy.special.expit and torch.sigmoid:
 # 1 - sigmoid(x) rounds to 0 from SATURATES on, sigmoid(x) is 0 below UNDERFLOWS.
@@ -105,38 +110,14 @@ _BCE_CLASSES = {"torch.nn.BCELoss": "torch", "torch.nn.modules.loss.BCELoss": "t
                 "keras.losses.BinaryCrossentropy": "keras", "tensorflow.losses.BinaryCrossentropy": "keras"}
 
 
-def _qual(ref: Ref) -> str | None:
-    q = qualname(ref) if isinstance(ref.node, (ast.Name, ast.Attribute)) else None
-    for _ in range(3):  # tensorflow.compat.v1.keras.losses -> tensorflow.keras.losses -> keras.losses
-        q = normalise(q) if q else q
-    return q
-
-
-def _passed(call: ast.Call, pos: int, *names: str) -> ast.expr | None:
-    for kw in call.keywords:
-        if kw.arg in names:
-            return kw.value
-    if any(isinstance(a, ast.Starred) for a in call.args[: pos + 1]):
-        return None
-    return call.args[pos] if pos < len(call.args) else None
-
-
-def _from_logits_off(call: ast.Call, pos: int) -> bool:
-    """``from_logits`` is not passed, or passed as False (Keras)."""
-    if any(kw.arg is None for kw in call.keywords):
-        return False  # **kwargs may hold it
-    v = _passed(call, pos, "from_logits")
-    return v is None or (isinstance(v, ast.Constant) and v.value is False)
-
-
 def _ctor_style(ref: Ref) -> str | None:
     """The style of a probability loss object built at ``ref`` (``nn.BCELoss()``,
     ``BinaryCrossentropy()`` without from_logits), else None."""
     node = ref.node
     if not isinstance(node, ast.Call):
         return None
-    style = _BCE_CLASSES.get(_qual(ref.child(node.func)) or "")
-    return None if style == "keras" and not _from_logits_off(node, 0) else style
+    style = _BCE_CLASSES.get(loss_qual(ref.child(node.func)) or "")
+    return None if style == "keras" and not from_logits_off(node, 0) else style
 
 
 def _mentions_bce(ctx: Context) -> bool:
@@ -157,11 +138,11 @@ class BCECall:
 def bce_call(ref: Ref) -> BCECall | None:
     """A framework binary cross-entropy that takes probabilities, called at ``ref``."""
     call = ref.node
-    style = _BCE_FUNCS.get(_qual(ref.child(call.func)) or "")
+    style = _BCE_FUNCS.get(loss_qual(ref.child(call.func)) or "")
     if style is not None:
-        if style == "keras" and not _from_logits_off(call, 2):
+        if style == "keras" and not from_logits_off(call, 2):
             return None
-        prob = _passed(call, 0, "input") if style == "torch" else _passed(call, 1, "y_pred", "output")
+        prob = passed_arg(call, 0, "input") if style == "torch" else passed_arg(call, 1, "y_pred", "output")
         return BCECall(style, prob, None) if prob is not None else None
     ctor = facts.strip(ref.child(call.func))
     if isinstance(ctor.node, ast.Attribute):
@@ -170,12 +151,12 @@ def bce_call(ref: Ref) -> BCECall | None:
     style = _ctor_style(ctor)
     if style is None:
         return None
-    prob = _passed(call, 0, "input") if style == "torch" else _passed(call, 1, "y_pred")
+    prob = passed_arg(call, 0, "input") if style == "torch" else passed_arg(call, 1, "y_pred")
     return BCECall(style, prob, ctor) if prob is not None else None
 
 
 def _from_logits_edit(ctx: Context, call: ast.Call, pos: int):
-    v = _passed(call, pos, "from_logits")
+    v = passed_arg(call, pos, "from_logits")
     if v is not None:
         return ctx.edit(v, "True")
     last = max([*call.args, *(k.value for k in call.keywords)], key=lambda n: (n.end_lineno, n.end_col_offset), default=None)
