@@ -180,6 +180,7 @@ def _keras_probability_loss(ctx: Context, call: ast.Call):
         return
     if o.call is not None and o.call.qual and normalise(o.call.qual).startswith("nn.") and "keras" in o.call.qual:
         return  # keras.activations.softmax: Keras keeps its logits
+    # 1e-7 is Keras's default epsilon (from memory, as for bce-from-sigmoid); -log(1e-7) = 16.1
     msg = (
         f"Keras cross-entropy of softmax probabilities{lines_note(ctx, facts.strip(ctx.ref(pred)).node)}: the loss clips "
         "them to [1e-7, 1 - 1e-7], so a confident wrong prediction costs at most 16.1 and its gradient vanishes; "
