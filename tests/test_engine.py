@@ -212,3 +212,9 @@ def test_every_rule_module_is_loaded_by_the_registry():
 
     on_disk = {m.name for m in pkgutil.iter_modules(nanproof.rules.__path__) if not m.name.startswith("_")}
     assert on_disk == set(_RULE_MODULES)
+
+
+def test_names_assigned_inside_a_function_are_not_module_bindings():
+    # ``e`` is local to make(): the module-level use is not that exp
+    src = "import numpy as np\ndef make(z):\n    e = np.exp(z)\n    return e\np = e / e.sum()\n"
+    assert ids(src) == []

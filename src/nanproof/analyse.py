@@ -250,24 +250,22 @@ def _candidate_lines(text: str, regex: re.Pattern) -> set[int]:
     return lines
 
 
-def _overlaps(node: ast.AST, lines: set[int]) -> bool:
+def _overlaps(node: ast.AST, lines: list[int]) -> bool:
+    """Does the statement (with its decorators) span one of the sorted ``lines``?"""
     start = node.lineno
     if getattr(node, "decorator_list", None):
         start = min(d.lineno for d in node.decorator_list)
-    return any(start <= ln <= node.end_lineno for ln in lines)
+    i = bisect.bisect_left(lines, start)
+    return i < len(lines) and lines[i] <= node.end_lineno
 
 
-def _region(body: list, lines: set[int]) -> Iterable[ast.stmt]:
-    for stmt in body:
-        if not _overlaps(stmt, lines):
-            continue
-        if isinstance(stmt, ast.ClassDef):
-            yield stmt  # visited member by member below
-        else:
-            yield stmt
+def _region(body: list, lines: list[int]) -> Iterable[ast.stmt]:
+    """Top-level statements holding a candidate line (a class is then visited member by
+    member in ``_walk``)."""
+    return (stmt for stmt in body if _overlaps(stmt, lines))
 
 
-def _walk(analysis: Analysis, dispatch: dict, lines: set[int], errors: list[str]) -> list[tuple[Rule, Hit, Context]]:
+def _walk(analysis: Analysis, dispatch: dict, lines: list[int], errors: list[str]) -> list[tuple[Rule, Hit, Context]]:
     """Every rule's hits in the candidate statements. A rule that raises loses that node
     only: the error is recorded (the file becomes a problem) and the walk goes on."""
     hits: list[tuple[Rule, Hit, Context]] = []
@@ -355,9 +353,9 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
             dispatch.setdefault(t, []).append(r)
     errors: list[str] = []
     try:
-        hits = _walk(analysis, dispatch, lines, errors)
+        hits = _walk(analysis, dispatch, sorted(lines), errors)
         findings = [_finding(analysis, r, h, c) for r, h, c in hits]
-        exports, imports = _links(analysis, link_lines | lines)
+        exports, imports = _links(analysis, sorted(link_lines | lines))
     except RecursionError:
         return FileResult(path, problem=Problem(path, "expression nesting too deep to analyse"))
     except Exception as e:  # outside any one rule: the file cannot be analysed
@@ -386,7 +384,7 @@ def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:
     )
 
 
-def _links(analysis: Analysis, lines: set[int]) -> tuple[tuple, tuple]:
+def _links(analysis: Analysis, lines: list[int]) -> tuple[tuple, tuple]:
     """Module-level functions returning softmax/sigmoid, and names imported from
     modules that are not frameworks: what the cross-file pass needs."""
     from .names import framework_of

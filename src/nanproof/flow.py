@@ -138,8 +138,10 @@ class Scope:
                 add(Binding(name, _end(stmt), "import", alias, stmt, path))
         elif isinstance(stmt, (ast.FunctionDef, ast.AsyncFunctionDef)):
             add(Binding(stmt.name, _end(stmt), "def", stmt, stmt, path))
+            return  # its body is a scope of its own
         elif isinstance(stmt, ast.ClassDef):
             add(Binding(stmt.name, _end(stmt), "class", stmt, stmt, path))
+            return
         elif isinstance(stmt, (ast.Global, ast.Nonlocal)):
             self._globals.update(stmt.names)
         # Walrus targets anywhere in the statement's own expressions (a full walk, so only

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import ast
 from dataclasses import dataclass
+from functools import lru_cache
 
 from .flow import AMBIGUOUS, Binding, Ref
 
@@ -126,6 +127,7 @@ NO_ARG_METHODS = {"exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "a
                   "detach", "float", "double", "half", "contiguous", "clone", "cpu", "numpy"}
 
 
+@lru_cache(maxsize=4096)
 def normalise(qual: str) -> str:
     for old, new in _ALIASES:
         if qual.startswith(old):
@@ -133,6 +135,7 @@ def normalise(qual: str) -> str:
     return qual
 
 
+@lru_cache(maxsize=4096)
 def framework_of(qual: str) -> str | None:
     best = None
     for prefix, fw in _FRAMEWORKS.items():
@@ -239,8 +242,16 @@ def op_of(ref: Ref) -> OpCall | None:
     return result
 
 
+# The last name of every function or method an operation can be spelled with: a call
+# ``a.b.zeros(...)`` whose attribute is none of these cannot be an operation, and is
+# answered without resolving ``a.b`` (most calls in numerical code).
+_LAST_NAMES = frozenset({q.rsplit(".", 1)[-1] for q in OP_BY_NAME} | set(METHODS))
+
+
 def _op_of(ref: Ref, node: ast.Call) -> OpCall | None:
     func = node.func
+    if isinstance(func, ast.Attribute) and func.attr not in _LAST_NAMES:
+        return None
     qual = qualname(ref.child(func)) if isinstance(func, (ast.Name, ast.Attribute)) else None
     if qual is not None and not qual.startswith("<local>"):
         norm = normalise(qual)
