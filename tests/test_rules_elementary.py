@@ -961,3 +961,15 @@ def test_ignores_log_of_one_plus_a_conventional_count_name(src):
 ])
 def test_ignores_the_shifted_two_term_log_add_exp(src):
     assert [r for r in ids(src) if r in ("softplus-manual", "log1p-manual")] == []
+
+
+def test_ignores_log_of_one_plus_a_tensor_size():
+    assert "log1p-manual" not in ids("import math\ndef f(x):\n    k = x.size(0)\n    return math.log(k + 1)\n")
+
+
+@pytest.mark.parametrize("src", [
+    "import torch\ndef sp(x):\n    return x.clamp(min=0) + x.abs().neg().exp().log1p()\n",
+    "import numpy as np\ndef sp(x):\n    return np.maximum(x, 0) + np.log1p(np.exp(np.negative(np.abs(x))))\n",
+])
+def test_ignores_the_stable_softplus_written_with_neg(src):
+    assert "softplus-manual" not in ids(src)

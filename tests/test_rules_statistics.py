@@ -928,3 +928,11 @@ def test_variance_inside_a_square_root_is_one_finding():
 def test_ignores_entropy_terms_of_positive_constant_fractions():
     # worked example: the entropy of a 3/5 - 2/5 split has no zero probability in it
     assert ids("import numpy as np\nH = -(3 / 5) * np.log(3 / 5) - (2 / 5) * np.log(2 / 5)\n") == []
+
+
+@pytest.mark.parametrize("src", [
+    "import jax.numpy as jnp\nclass T:\n    def f(self):\n        (n,) = self.event_shape\n        return jnp.log(n) * n\n",
+    "import math\nimport jax.numpy as jnp\ndef f(event_shape):\n    size = math.prod(event_shape)\n    return size * jnp.log(size)\n",
+])
+def test_ignores_x_log_x_of_sizes_taken_from_shapes(src):
+    assert "xlogx-nan" not in ids(src)

@@ -284,6 +284,8 @@ def nonneg(ref: Ref, depth: int = 0) -> bool:
     if oc is not None:
         if oc.op in _NONNEG_OPS:
             return True
+        if oc.op == "neg" and oc.subject is not None:
+            return nonpos(ref.child(oc.subject), depth + 1)
         if oc.op in ("sum", "mean", "max") and oc.subject is not None:
             return nonneg(ref.child(oc.subject), depth + 1)
     return False
@@ -321,6 +323,8 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
     if oc is not None:
         if oc.op in _NONPOS_OPS:
             return True
+        if oc.op == "neg" and oc.subject is not None:
+            return nonneg(ref.child(oc.subject), depth + 1)
         if oc.op == "log":  # log of a probability
             from .origins import kind_of  # origins builds on this module
 

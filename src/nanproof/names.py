@@ -97,6 +97,7 @@ _OPS: dict[str, tuple[str, ...]] = {
     "expand_dims": ("numpy.expand_dims", "torch.unsqueeze", "tensorflow.expand_dims"),
     "norm": ("numpy.norm", "torch.norm", "torch.vector_norm", "tensorflow.norm"),
     "var": ("numpy.var", "numpy.nanvar", "torch.var", "tensorflow.reduce_variance", "statistics.pvariance", "statistics.variance"),
+    "neg": ("numpy.negative", "torch.neg", "torch.negative", "tensorflow.negative"),
     # uniform draws in [0, 1)
     "rand": ("numpy.random.rand", "numpy.random.random", "numpy.random.random_sample", "torch.rand", "torch.rand_like"),
     "xlogy": ("scipy.special.xlogy", "torch.xlogy", "scipy.special.entr", "scipy.special.rel_entr"),
@@ -120,10 +121,10 @@ METHODS = {
     "detach": "identity", "float": "identity", "double": "identity", "half": "identity",
     "astype": "identity", "type": "identity", "to": "identity", "contiguous": "identity",
     "clone": "identity", "cpu": "identity", "cuda": "identity", "numpy": "identity", "copy": "identity",
-    "random": "rand", "rand": "rand", "random_sample": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
+    "neg": "neg", "negative": "neg", "random": "rand", "rand": "rand", "random_sample": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
     "log2": "log2", "log10": "log10", "pow": "power", "nan_to_num": "nan_to_num",
 }
-NO_ARG_METHODS = {"exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",
+NO_ARG_METHODS = {"neg", "negative", "exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",
                   "detach", "float", "double", "half", "contiguous", "clone", "cpu", "numpy"}
 
 

@@ -30,7 +30,7 @@ _INT_CALLS = {
     "numpy.random.poisson", "torch.bincount", "torch.count_nonzero", "torch.argmax", "torch.argmin",
     "torch.argsort", "torch.randint",
 }
-_INT_METHODS = {"count", "index", "numel", "nelement", "bit_length", "argmax", "argmin", "argsort", "dim"}
+_INT_METHODS = {"count", "index", "numel", "nelement", "bit_length", "argmax", "argmin", "argsort", "dim", "size"}
 _INT_ATTRS = {"ndim", "size", "itemsize", "nbytes"}
 _INT_OPS = (ast.Add, ast.Sub, ast.Mult, ast.FloorDiv, ast.Mod)
 _RANGES = {"builtins.range", "numpy.arange", "torch.arange"}
@@ -88,7 +88,15 @@ def _encloses(outer: ast.AST, inner: ast.AST) -> bool:
 # Names that hold counts by convention (common practice in numerical Python: n, k,
 # n_samples, num_classes, steps, epoch): an unannotated parameter or attribute so named
 # is taken as an integer, so that ``log(n + 1)`` is not reported.
-_COUNT_NAME = re.compile(r"^(?:[nmkNMK]|n_\w+|num_?\w*|\w*_count|counts?|n?samples|steps|epochs?|iters?|iterations?|length|len_\w+)$")
+_COUNT_NAME = re.compile(r"^(?:[nmkNMK]|n_\w+|num_?\w*|\w*_count|counts?|n?samples|steps|epochs?|iters?|iterations?|length|len_\w+|size)$")
+
+
+def _names_shape(node: ast.AST) -> bool:
+    """``x.shape``, ``event_shape``, ``batch_shape[1:]``: a tuple of sizes."""
+    if isinstance(node, ast.Subscript):
+        node = node.value
+    word = node.attr if isinstance(node, ast.Attribute) else node.id if isinstance(node, ast.Name) else ""
+    return word == "shape" or word.endswith("_shape")
 
 
 def integral(ref: Ref, depth: int = 0) -> bool:
@@ -109,8 +117,10 @@ def integral(ref: Ref, depth: int = 0) -> bool:
             return False
         if isinstance(b.stmt, (ast.For, ast.AsyncFor)) and b.kind in ("loop", "other"):  # tuple targets are "other"
             return _iterates_ints(ref, b.stmt.iter, b.stmt.target, b.target)
+        if b.kind == "other" and isinstance(b.stmt, ast.Assign) and _names_shape(b.stmt.value):
+            return True  # (n, d) = x.shape
         ann = getattr(b.target, "annotation", None) if b.kind == "param" else None
-        if ann is None and b.kind == "param":
+        if ann is None and b.kind in ("param", "other"):
             return bool(_COUNT_NAME.match(node.id))
         return isinstance(ann, ast.Name) and ann.id == "int"
     if isinstance(node, ast.BinOp):
@@ -132,6 +142,9 @@ def integral(ref: Ref, depth: int = 0) -> bool:
             return True
         if q == "builtins.round":
             return len(node.args) == 1 and not node.keywords
+        if q == "math.prod" and node.args:  # a product of shape entries or of integers
+            arg = strip(ref.child(node.args[0]))
+            return _names_shape(arg.node) or integral(arg, depth + 1)
         f = node.func
         return q is None and isinstance(f, ast.Attribute) and f.attr in _INT_METHODS
     return False

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins
+from .. import facts, origins, ranges
 from ..analyse import Context, Hit
 from ..flow import Ref
 from ..names import OpCall, normalise
@@ -187,7 +187,7 @@ def xlogx_nan(ctx: Context):
     if not isinstance(node.op, ast.Mult):
         return
     x = xlogx_parts(ctx, node)
-    if x is None or positive(x.p) or filtered(x.p) or evident_int(x.p) or statement_guard(ctx, x.p):
+    if x is None or positive(x.p) or filtered(x.p) or evident_int(x.p) or ranges.integral(x.p) or statement_guard(ctx, x.p):
         return
     if facts.op(x.p, *_LOGS) is not None:
         return  # log(n) * log(log(n)): an asymptotic formula of logs, not an entropy term
