@@ -83,8 +83,6 @@ def diag_of(ref: Ref) -> Ref | None:
     return None
 
 
-_PRODUCT_METHODS = ("dot", "matmul", "mm", "mv")
-
 
 def _products(ctx: Context, name: str, b) -> list[tuple[ast.AST, ast.AST]] | None:
     """Each use of the Jacobian held in ``name`` as (product node, vector node); None
