@@ -184,8 +184,13 @@ def test_every_registered_rule_has_a_page():
     assert not missing, f"rules without a page under rules/: {missing}"
 
 
-def test_every_catalogued_rule_has_a_page():
-    missing = [rid for rid in catalogue_rows() if rid not in PAGE_IDS]
+def test_every_catalogued_rule_of_a_shipped_family_has_a_page():
+    # A family the catalogue lists before any of its rules is built (its issue still
+    # open) has no pages yet; every rule of a family we ship must have one.
+    shipped = {r.family for r in registered().values()}
+    rows = catalogue_rows()
+    family = {rid: row.split("|")[1].strip() for rid, row in rows.items()}
+    missing = [rid for rid in rows if family[rid] in shipped and rid not in PAGE_IDS]
     assert not missing, f"catalogue rules without a page: {missing}"
 
 

@@ -15,7 +15,8 @@ from functools import lru_cache
 from typing import Iterable
 
 from .decisions import precedence, silenced, suppressions
-from .flow import Path, Ref, Scope, child_blocks, statements_with_paths
+from .values.bindings import Path, Ref, Scope, child_blocks, scope_for, statements_with_paths
+from .values.summaries import function_summary
 from .model import Edit, FileResult, Finding, Fix, Problem, Span
 from .read import physical_lines
 from .registry import Rule
@@ -44,14 +45,6 @@ _LINK = re.compile(r"softmax|Softmax|sigmoid|Sigmoid|expit|exp\s*\(")
 @lru_cache(maxsize=64)
 def trigger_regex(triggers: tuple[str, ...]) -> re.Pattern:
     return re.compile(r"\b(?:" + "|".join(f"(?:{t})" for t in sorted(set(triggers))) + ")")
-
-
-def scope_for(node: ast.AST, parent: Scope) -> Scope:
-    registry = parent.module.cache.setdefault("scopes", {})
-    s = registry.get(id(node))
-    if s is None:
-        s = registry[id(node)] = Scope(node, parent)
-    return s
 
 
 class Analysis:
@@ -158,75 +151,6 @@ def _apply(text: str, edits, line0: int, col0: int) -> str:
         text = text[:a] + e.text + text[b:]
         lines = physical_lines(text) or [""]
     return text
-
-
-# ---------------------------------------------------------------------------------------
-# Following helpers: what a function returns
-# ---------------------------------------------------------------------------------------
-def function_summary(fn_and_owner, depth: int = 0) -> str | None:
-    """The kind of value (softmax, sigmoid, ...) every ``return`` of a function gives."""
-    from .origins import origin
-
-    fn, owner = fn_and_owner
-    if owner is None:
-        return None
-    scope = scope_for(fn, owner)
-    if "returns" in scope.cache:
-        return scope.cache["returns"]
-    scope.cache["returns"] = None  # recursion guard
-    if isinstance(fn, ast.Lambda):
-        values = [Ref(fn.body, scope, ())]
-    else:
-        values = [Ref(s.value, scope, p) for s, p in statements_with_paths(fn) if isinstance(s, ast.Return) and s.value is not None]
-    kinds = {(o.kind if (o := origin(v, depth + 1)) else None) for v in values}
-    result = kinds.pop() if len(kinds) == 1 else None
-    scope.cache["returns"] = result
-    return result
-
-
-def project_summary(callee: Ref, binding, qual: str | None = None) -> str | None:
-    """The kind a function imported from another scanned module returns."""
-    analysis: Analysis = callee.scope.module.cache["analysis"]
-    if not analysis.project:
-        return None
-    if binding is not None:
-        stmt = binding.stmt
-        if not isinstance(stmt, ast.ImportFrom):
-            return None
-        name = binding.value.name
-        module = stmt.module or ""
-        level = stmt.level
-    elif qual is not None and "." in qual:
-        module, name = qual.rsplit(".", 1)
-        level = 0
-    else:
-        return None
-    parts = tuple(p for p in module.split(".") if p)
-    if level:
-        base = module_parts(analysis.path)[:-1]
-        base = base[: len(base) - (level - 1)] if level > 1 else base
-        wanted = [base + parts]
-    else:
-        wanted = None
-    for (mod_parts, fname), kind in analysis.project.items():
-        if fname != name:
-            continue
-        if mod_parts and mod_parts[-1] == "__init__":
-            mod_parts = mod_parts[:-1]
-        if wanted is not None:
-            if mod_parts in wanted:
-                return kind
-        elif parts and mod_parts[-len(parts):] == parts:
-            return kind
-    return None
-
-
-def module_parts(path: str) -> tuple[str, ...]:
-    p = path.replace("\\", "/")
-    for suffix in (".pyi", ".py"):
-        if p.endswith(suffix):
-            p = p[: -len(suffix)]
-    return tuple(x for x in p.split("/") if x not in ("", "."))
 
 
 # ---------------------------------------------------------------------------------------
@@ -387,7 +311,7 @@ def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:
 def _links(analysis: Analysis, lines: list[int]) -> tuple[tuple, tuple]:
     """Module-level functions returning softmax/sigmoid, and names imported from
     modules that are not frameworks: what the cross-file pass needs."""
-    from .names import framework_of
+    from .values.names import framework_of
 
     exports = []
     imports = []

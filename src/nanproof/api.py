@@ -10,7 +10,8 @@ import os
 import sys
 from typing import Callable, Iterable
 
-from .analyse import analyse_source, module_parts
+from .analyse import analyse_source
+from .values.summaries import module_parts
 from .config import Config
 from .discover import discover
 from .model import FileResult, Problem, ScanResult

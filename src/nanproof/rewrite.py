@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import ast
 
-from .flow import Ref
+from .values.bindings import Ref
 from .model import Edit, Span
-from .names import OpCall
+from .values.names import OpCall
 
 # Python precedence of expression nodes: higher binds tighter.
 _ATOMS = (ast.Name, ast.Attribute, ast.Subscript, ast.Call, ast.Constant, ast.List, ast.Tuple, ast.Dict, ast.Set)
@@ -61,7 +61,7 @@ def func_prefix(oc: OpCall, text_of) -> str | None:
 def module_alias(ref: Ref, *modules: str) -> str | None:
     """A name in the file bound to one of ``modules`` (``import numpy as np`` -> ``np``),
     visible from ``ref``'s scope."""
-    from .names import _import_target
+    from .values.names import _import_target
 
     wanted = set(modules)
     scope = ref.scope
@@ -127,7 +127,7 @@ def reachable(ref: Ref, qual: str) -> str | None:
     """Code naming the function ``qual`` (``scipy.special.expit``) through the file's own
     imports, as seen from ``ref``: ``expit``, ``sp.expit``, ``scipy.special.expit``; None
     when no import makes it available."""
-    from .names import _import_target
+    from .values.names import _import_target
 
     module, name = qual.rsplit(".", 1)
     scope = ref.scope

@@ -10,11 +10,11 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass, replace
 
-from .. import facts, origins
+from ..values import facts, origins
 from ..analyse import Context
-from ..flow import Ref
-from ..names import framework_of, normalise, qualname
-from ..origins import Origin
+from ..values.bindings import Ref
+from ..values.names import framework_of, normalise, qualname
+from ..values.origins import Origin
 from ..rewrite import atomic, func_prefix, import_edit, module_alias, paren, simple
 from ._shared import names_stable
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins
+from ..values import facts, origins
 from ..analyse import Context
-from ..flow import Ref
-from ..names import normalise, qualname
-from ..origins import Origin
+from ..values.bindings import Ref
+from ..values.names import normalise, qualname
+from ..values.origins import Origin
 from ..rewrite import func_prefix, import_edit, module_alias, operand, simple
 
 # ln of the largest finite float (IEEE 754; numpy.finfo(t).max): where exp overflows.

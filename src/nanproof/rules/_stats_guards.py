@@ -6,11 +6,11 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .. import facts
+from ..values import facts
 from ..analyse import Context
-from ..flow import _BLOCK_FIELDS, AMBIGUOUS, Ref, statements_with_paths
-from ..names import OpCall, qualname
-from ..ranges import constant
+from ..values.bindings import _BLOCK_FIELDS, AMBIGUOUS, Ref, statements_with_paths
+from ..values.names import OpCall, qualname
+from ..values.ranges import constant
 from ._stats_shapes import nan_aware
 
 

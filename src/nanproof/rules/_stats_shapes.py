@@ -6,11 +6,11 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .. import facts
+from ..values import facts
 from ..analyse import Context
-from ..flow import AMBIGUOUS, Ref
+from ..values.bindings import AMBIGUOUS, Ref
 from ..model import Edit
-from ..names import OpCall, _import_target, framework_of, qualname
+from ..values.names import OpCall, _import_target, framework_of, qualname
 from ..rewrite import import_edit, module_alias
 
 

@@ -5,11 +5,11 @@ from __future__ import annotations
 import ast
 from dataclasses import replace
 
-from .. import facts, origins
+from ..values import facts, origins
 from ..analyse import Context, Hit
-from ..flow import Ref
-from ..names import normalise, qualname
-from ..origins import Origin
+from ..values.bindings import Ref
+from ..values.names import normalise, qualname
+from ..values.origins import Origin
 from ..registry import rule
 from ._shared import (
     UNDERFLOW,

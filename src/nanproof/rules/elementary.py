@@ -10,10 +10,10 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins, ranges
+from ..values import facts, origins, ranges
 from ..analyse import Context, Hit
-from ..flow import Ref
-from ..names import OpCall, normalise
+from ..values.bindings import Ref
+from ..values.names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import import_edit, paren, reachable, simple
 from ._shared import OVERFLOW, lines_note, names_stable, used_elsewhere

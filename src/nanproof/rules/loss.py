@@ -6,9 +6,10 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .. import facts, origins
-from ..analyse import Context, Hit, scope_for
-from ..flow import Ref, statements_with_paths
+from ..values import facts, origins
+from ..analyse import Context, Hit
+from ..values.bindings import scope_for
+from ..values.bindings import Ref, statements_with_paths
 from ..model import Edit, Span
 from ..registry import rule
 from ..rewrite import import_edit

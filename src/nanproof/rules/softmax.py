@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins
+from ..values import facts, origins
 from ..analyse import Context, Hit
-from ..facts import Reduction
-from ..flow import Ref
-from ..names import OpCall, normalise, qualname
-from ..origins import ManualSoftmax
+from ..values.facts import Reduction
+from ..values.bindings import Ref
+from ..values.names import OpCall, normalise, qualname
+from ..values.origins import ManualSoftmax
 from ..registry import rule
 from ..rewrite import add_keyword, func_prefix, module_alias, operand, paren, simple
 from ._shared import (

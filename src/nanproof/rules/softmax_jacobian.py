@@ -3,10 +3,10 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins
+from ..values import facts, origins
 from ..analyse import Context, Hit
-from ..flow import Ref
-from ..names import OpCall, normalise, qualname
+from ..values.bindings import Ref
+from ..values.names import OpCall, normalise, qualname
 from ..registry import rule
 from ..rewrite import func_prefix, paren, simple
 from ._shared import lines_note
@@ -116,7 +116,7 @@ def _product_around(ctx: Context, load: ast.Name):
 def _scope_nodes(ctx: Context):
     cache = ctx.scope.cache
     if "all_nodes" not in cache:
-        from ..flow import _walk_scope
+        from ..values.bindings import _walk_scope
 
         cache["all_nodes"] = list(_walk_scope(ctx.scope.node))
     return cache["all_nodes"]
@@ -304,13 +304,13 @@ def _is_softmax_callable(ctx: Context, f: Ref) -> bool:
     node = s.node
     if isinstance(node, (ast.Name, ast.Attribute)):
         q = qualname(s)
-        from ..names import OP_BY_NAME
+        from ..values.names import OP_BY_NAME
 
         if q and OP_BY_NAME.get(normalise(q)) == "softmax":
             return True
         return origins.returns_kind(s) == "softmax"
     if isinstance(node, ast.Lambda):
-        from ..analyse import scope_for
+        from ..values.bindings import scope_for
 
         inner = Ref(node.body, scope_for(node, s.scope), ())
         o = origins.origin(inner)

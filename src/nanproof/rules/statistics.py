@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import ast
 
-from .. import facts, origins, ranges
+from ..values import facts, origins, ranges
 from ..analyse import Context, Hit
-from ..flow import Ref
-from ..names import OpCall, normalise
+from ..values.bindings import Ref
+from ..values.names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import func_prefix, module_alias, paren, simple
 from ._shared import lines_note, log_softmax_text, names_stable

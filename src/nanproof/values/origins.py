@@ -7,7 +7,7 @@ import ast
 from dataclasses import dataclass
 
 from .facts import AMBIGUOUS, Reduction, _const, binding_of, reduction, same, strip
-from .flow import Ref
+from .bindings import Ref
 from .names import OpCall, framework_of, normalise, op_of, qualname
 
 
@@ -272,7 +272,7 @@ def self_attribute(ref: Ref) -> Ref | None:
     table = cls.cache.get("self_attrs")
     if table is None:
         table = {}
-        from .analyse import scope_for
+        from .bindings import scope_for
 
         for item in cls.node.body:
             if isinstance(item, (ast.FunctionDef, ast.AsyncFunctionDef)):
@@ -289,7 +289,7 @@ def self_attribute(ref: Ref) -> Ref | None:
 
 
 def _stmts(fn: ast.AST):
-    from .flow import statements_with_paths
+    from .bindings import statements_with_paths
 
     return statements_with_paths(fn)
 
@@ -299,7 +299,7 @@ def returns_kind(callee: Ref, depth: int = 0) -> str | None:
     function, a method on ``self``, a lambda) or imported from a scanned module."""
     if depth > 6:
         return None
-    from .analyse import function_summary, project_summary
+    from .summaries import function_summary, project_summary
 
     node = callee.node
     if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id == "self":

@@ -13,7 +13,7 @@ import operator
 import re
 
 from .facts import MAX_DEPTH, _const, binding_of, bounded_above, nonneg, op, same, strip
-from .flow import AMBIGUOUS, Ref, statements_with_paths
+from .bindings import AMBIGUOUS, Ref, statements_with_paths
 from .names import normalise, qualname
 
 # sqrt(numpy.finfo(numpy.float64).eps): a constant c below this keeps fewer than half of

@@ -10,7 +10,7 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .flow import AMBIGUOUS, Ref, Scope
+from .bindings import AMBIGUOUS, Ref, Scope
 from .names import OpCall, framework_of, normalise, op_of, qualname
 
 MAX_DEPTH = 12

@@ -12,7 +12,7 @@ import ast
 from dataclasses import dataclass
 from functools import lru_cache
 
-from .flow import AMBIGUOUS, Binding, Ref
+from .bindings import AMBIGUOUS, Binding, Ref
 
 # Framework of a fully qualified module prefix; longest prefix wins.
 _FRAMEWORKS = {

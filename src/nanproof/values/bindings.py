@@ -273,3 +273,11 @@ def child_blocks(stmt: ast.AST, path: Path) -> Iterator[tuple[list, Path]]:
     if isinstance(stmt, getattr(ast, "Match", ())):
         for i, case in enumerate(stmt.cases):
             yield case.body, path + ((id(stmt), 10 + i),)
+
+
+def scope_for(node: ast.AST, parent: Scope) -> Scope:
+    registry = parent.module.cache.setdefault("scopes", {})
+    s = registry.get(id(node))
+    if s is None:
+        s = registry[id(node)] = Scope(node, parent)
+    return s
