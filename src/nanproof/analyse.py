@@ -16,7 +16,7 @@ from typing import Iterable
 
 from .decisions import precedence, silenced, suppressions
 from .values.bindings import Path, Ref, Scope, child_blocks, scope_for, statements_with_paths
-from .values.summaries import function_summary
+from .values.summaries import file_links
 from .model import Edit, FileResult, Finding, Fix, Problem, Span
 from .read import physical_lines
 from .registry import Rule
@@ -279,7 +279,7 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
     try:
         hits = _walk(analysis, dispatch, sorted(lines), errors)
         findings = [_finding(analysis, r, h, c) for r, h, c in hits]
-        exports, imports = _links(analysis, sorted(link_lines | lines))
+        exports, imports, passes = file_links(analysis, sorted(link_lines | lines))
     except RecursionError:
         return FileResult(path, problem=Problem(path, "expression nesting too deep to analyse"))
     except Exception as e:  # outside any one rule: the file cannot be analysed
@@ -291,7 +291,7 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
     per_line, whole = suppressions(text)
     findings = [f for f in precedence(findings, by_id) if not silenced(f, per_line, whole)]
     findings.sort(key=Finding.sort_key)
-    return FileResult(path, tuple(findings), problem=problem, exports=exports, imports=imports)
+    return FileResult(path, tuple(findings), problem=problem, exports=exports, imports=imports, passes=passes)
 
 
 def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:
@@ -306,22 +306,3 @@ def _finding(analysis: Analysis, rule: Rule, hit: Hit, ctx: Context) -> Finding:
         covers=tuple(analysis.span(n) for n in hit.covers),
         statement_line=getattr(ctx.stmt, "lineno", 0),
     )
-
-
-def _links(analysis: Analysis, lines: list[int]) -> tuple[tuple, tuple]:
-    """Module-level functions returning softmax/sigmoid, and names imported from
-    modules that are not frameworks: what the cross-file pass needs."""
-    from .values.names import framework_of
-
-    exports = []
-    imports = []
-    for stmt in analysis.tree.body:
-        if isinstance(stmt, (ast.FunctionDef, ast.AsyncFunctionDef)) and _overlaps(stmt, lines):
-            kind = function_summary((stmt, analysis.module))
-            if kind is not None:
-                exports.append((stmt.name, kind))
-        elif isinstance(stmt, ast.ImportFrom) and (stmt.level or not framework_of(stmt.module or "")):
-            imports.extend(a.asname or a.name for a in stmt.names)
-        elif isinstance(stmt, ast.Import):
-            imports.extend(a.asname or a.name for a in stmt.names if not framework_of(a.name))
-    return tuple(exports), tuple(imports)

@@ -11,7 +11,7 @@ import sys
 from typing import Callable, Iterable
 
 from .analyse import analyse_source
-from .values.summaries import module_parts
+from .values.summaries import project_table, relevant
 from .config import Config
 from .discover import discover
 from .model import FileResult, Problem, ScanResult
@@ -19,6 +19,7 @@ from .read import ReadError, read_source
 from .registry import Rule, all_rules
 
 Progress = Callable[[int, int], None]  # (files done, files in all)
+MAX_ROUNDS = 3  # passes after the first that follow values across files
 
 
 def select_rules(config: Config) -> list[Rule]:
@@ -70,11 +71,6 @@ def _run(paths: list[str], rule_ids: tuple[str, ...], project: dict | None, jobs
     return results
 
 
-def project_table(results: Iterable[FileResult]) -> dict:
-    """(module path parts, function name) -> kind, for helpers that cross files."""
-    return {(module_parts(r.path), name): kind for r in results for name, kind in r.exports}
-
-
 def scan(paths: list[str], config: Config = Config(), progress: Progress | None = None) -> ScanResult:
     """Discover, read and analyse PATHs; results sorted by path, line, column, rule.
     Raises ``gitdiff.GitError`` (a ConfigError) before any analysis when
@@ -87,15 +83,18 @@ def scan(paths: list[str], config: Config = Config(), progress: Progress | None 
     rule_ids = tuple(sorted(config.enabled()))
     jobs = config.jobs or os.cpu_count() or 1
     results = _run(files, rule_ids, None, jobs, progress, 0, len(files))
-    # Second pass for files that import a helper another scanned file defines.
-    table = project_table(results)
-    if table:
-        names = {name for _, name in table}
-        again = [i for i, r in enumerate(results) if names.intersection(r.imports)]
-        if again:
-            redone = _run([files[i] for i in again], rule_ids, table, jobs, None, 0, len(again))
-            for i, r in zip(again, redone):
-                results[i] = r
+    # Further passes for files that use what another scanned file defines (a helper or
+    # class it imports, a function of its own that others call), until nothing changes.
+    seen: list = [None] * len(results)
+    for _ in range(MAX_ROUNDS):
+        table = project_table(results)
+        slices = [relevant(table, r) for r in results]
+        again = [i for i, sl in enumerate(slices) if sl and sl != seen[i]]
+        if not again:
+            break
+        redone = _run([files[i] for i in again], rule_ids, table, jobs, None, 0, len(again))
+        for i, r in zip(again, redone):
+            results[i], seen[i] = r, slices[i]
     findings = [f for r in results for f in r.findings]
     problems.extend(r.problem for r in results if r.problem is not None)
     if config.changed_since:

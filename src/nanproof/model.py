@@ -88,11 +88,13 @@ class FileResult:
     path: str
     findings: tuple[Finding, ...] = ()
     problem: Problem | None = None
-    # For following helpers across files: module-level functions of this file that
-    # return a softmax or sigmoid (name, kind), and names it imports from non-framework
-    # modules.
-    exports: tuple[tuple[str, str], ...] = ()
+    # For following values across files (values.summaries.file_links): what this file's
+    # functions and classes return (name, "function" | "instance", kind, items, line),
+    # the names it imports from non-framework modules, and what its calls to imported
+    # functions pass (name, module spec, ((position | keyword, kind), ...), path, line).
+    exports: tuple[tuple, ...] = ()
     imports: tuple[str, ...] = ()
+    passes: tuple[tuple, ...] = ()
 
 
 @dataclass(frozen=True)

@@ -16,7 +16,7 @@ from ..values.bindings import Ref
 from ..values.names import framework_of, normalise, qualname
 from ..values.origins import Origin
 from ..rewrite import atomic, func_prefix, import_edit, module_alias, paren, simple
-from ._shared import names_stable
+from ._shared import names_stable, origin_words
 
 
 @dataclass(frozen=True)
@@ -68,8 +68,7 @@ def log_prob(ref: Ref) -> Prob | None:
 
 
 def words(o: Origin) -> str:
-    return {"framework": "a sigmoid", "hand-written": "a hand-written sigmoid", "helper": "a helper that returns a sigmoid",
-            "module": "a sigmoid module", "layer": "a layer with a sigmoid activation"}[o.how].replace("sigmoid", o.kind)
+    return origin_words(o)
 
 
 def _at(ctx: Context, ref: Ref) -> Context:

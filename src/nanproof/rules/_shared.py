@@ -136,9 +136,14 @@ def log_of_softmax_fix(ctx: Context, o: Origin, src: Ref, at: ast.AST):
     return ctx.fix(kind, [ctx.edit(at, text), *extra], at=at)
 
 
+_HOW_WORDS = {"framework": "a softmax", "hand-written": "a hand-written softmax", "helper": "a helper that returns a softmax",
+              "module": "a softmax module", "layer": "a layer with a softmax activation",
+              "param": "a softmax passed in as a parameter", "instance": "the output of a model that returns a softmax"}
+
+
 def origin_words(o: Origin) -> str:
-    return {"framework": "a softmax", "hand-written": "a hand-written softmax", "helper": "a helper that returns a softmax",
-            "module": "a softmax module", "layer": "a layer with a softmax activation"}[o.how]
+    """How a probability came to be, with where it was made when that is elsewhere."""
+    return _HOW_WORDS[o.how].replace("softmax", o.kind) + o.provenance
 
 
 # -- framework loss calls ------------------------------------------------------------

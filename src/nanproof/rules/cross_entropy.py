@@ -66,7 +66,9 @@ def _picked_fix(ctx: Context, o: Origin, picked: Ref, at: ast.AST):
     sub = facts.strip(picked).node
     if not isinstance(sub, ast.Subscript) or not names_stable(ctx, sub.slice, picked):
         return None
-    got = log_softmax_text(ctx, o, facts.strip(picked.child(sub.value)))
+    whole = facts.strip(picked.child(sub.value))
+    o = origins.origin(whole) or o  # the softmax the entries are picked from
+    got = log_softmax_text(ctx, o, whole)
     if got is None:
         return None
     text, extra = got
@@ -80,7 +82,8 @@ def _ce_hit(ctx: Context, log_ref: Ref, o: Origin, suggestion: str):
     guarded = src.node is not facts.strip(arg).node
     # A log of gathered entries (p[range(n), y]) has no whole-log rewrite; dropping an
     # epsilon guard changes the values, so that rewrite needs a review.
-    fix = log_of_softmax_fix(ctx, o, src, log_ref.node) if origins.origin(src) is not None else _picked_fix(ctx, o, src, log_ref.node)
+    picked = origins.shape_operand(facts.strip(src)) is not None
+    fix = _picked_fix(ctx, o, src, log_ref.node) if picked else log_of_softmax_fix(ctx, o, src, log_ref.node)
     if fix is not None and guarded:
         fix = replace(fix, kind="review")
     eps = "; an epsilon guard only caps it near -log(eps) and stalls the gradient" if guarded else ""

@@ -33,6 +33,7 @@ class Binding:
     op: ast.operator | None = None  # for "aug": the operator
     target: ast.AST | None = None  # the Name node that is bound
     owner: "Scope | None" = None  # the scope holding the binding (set when added)
+    unpack: "tuple[ast.expr, int] | None" = None  # ``a, b = f()``: (the whole value, this index)
 
 
 class Ambiguous:
@@ -117,8 +118,12 @@ class Scope:
         elif isinstance(target, (ast.Tuple, ast.List)):
             elts = target.elts
             vals = value.elts if isinstance(value, (ast.Tuple, ast.List)) and len(value.elts) == len(elts) else None
+            starred = any(isinstance(e, ast.Starred) for e in elts)
             for i, elt in enumerate(elts):
                 sub = vals[i] if vals is not None and not isinstance(elt, ast.Starred) else None
+                if sub is None and vals is None and value is not None and not starred and isinstance(elt, ast.Name) and kind == "assign":
+                    self._add(Binding(elt.id, pos, "other", None, stmt, path, target=elt, unpack=(value, i)))
+                    continue
                 self._targets(elt, sub, stmt, path, kind if sub is not None else "other", pos)
         elif isinstance(target, ast.Starred):
             self._targets(target.value, None, stmt, path, "other", pos)

@@ -178,14 +178,60 @@ def qualname(ref: Ref, depth: int = 0) -> str | None:
     if b is None:
         return f"builtins.{node.id}"
     if b is AMBIGUOUS:
-        return None
+        return _one_module(ref, node.id, depth)
     if b.kind == "import":
         return _import_target(b)
     if b.kind in ("def", "class"):
         return f"<local>.{node.id}"
     if b.kind == "assign" and isinstance(b.value, (ast.Name, ast.Attribute)):
         return qualname(Ref(b.value, ref.scope, b.path), depth + 1)
+    if b.kind == "assign" and isinstance(b.value, ast.IfExp):  # xp = cupy if gpu else numpy
+        return _same_module([Ref(b.value.body, ref.scope, b.path), Ref(b.value.orelse, ref.scope, b.path)], depth)
     return None
+
+
+def _same_module(refs: list[Ref], depth: int) -> str | None:
+    """One array module under the aliases (``cupy`` and ``numpy`` are one API): the name
+    that spells it without an alias, else the first in order."""
+    quals = []
+    for r in refs:
+        q = qualname(r, depth + 1) if isinstance(r.node, (ast.Name, ast.Attribute)) else None
+        if q is None or framework_of(q) is None:
+            return None
+        quals.append(q)
+    if len({normalise(q + ".") for q in quals}) != 1:
+        return None
+    plain = [q for q in quals if normalise(q + ".") == q + "."]
+    return plain[0] if plain else quals[0]
+
+
+def _one_module(ref: Ref, name: str, depth: int) -> str | None:
+    """A name bound in several branches to interchangeable array modules resolves to
+    them all: ``try: import cupy as np`` / ``except ImportError: import numpy as np``."""
+    scope = ref.scope
+    while scope is not None and name not in scope.bindings():
+        scope = scope.parent
+    found = scope.bindings().get(name, []) if scope is not None else []
+    refs = []
+    for b in found:
+        if b.kind == "import":
+            q = _import_target(b)
+            if q is None or framework_of(q) is None:
+                return None
+            refs.append(q)
+        elif b.kind == "assign" and isinstance(b.value, (ast.Name, ast.Attribute, ast.IfExp)):
+            parts = [b.value.body, b.value.orelse] if isinstance(b.value, ast.IfExp) else [b.value]
+            for part in parts:
+                q = qualname(Ref(part, scope, b.path), depth + 1) if isinstance(part, (ast.Name, ast.Attribute)) else None
+                if q is None or framework_of(q) is None:
+                    return None
+                refs.append(q)
+        else:
+            return None
+    if not refs or len({normalise(q + ".") for q in refs}) != 1:
+        return None
+    plain = [q for q in refs if normalise(q + ".") == q + "."]
+    return plain[0] if plain else refs[0]
 
 
 @dataclass(frozen=True)

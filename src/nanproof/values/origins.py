@@ -6,9 +6,19 @@ from __future__ import annotations
 import ast
 from dataclasses import dataclass
 
-from .facts import AMBIGUOUS, Reduction, _const, binding_of, reduction, same, strip
+from dataclasses import replace
+
 from .bindings import Ref
+from .facts import AMBIGUOUS, Reduction, _const, binding_of, reduction, same, strip
 from .names import OpCall, framework_of, normalise, op_of, qualname
+from .summaries import (
+    function_returned,
+    instance_returned,
+    local_class,
+    method_of,
+    param_origin,
+    project_returned,
+)
 
 
 # ---------------------------------------------------------------------------------------
@@ -88,11 +98,19 @@ _ACTIVATION_KIND = {"softmax": "softmax", "sigmoid": "sigmoid", "log_softmax": "
 @dataclass(frozen=True)
 class Origin:
     kind: str  # softmax | sigmoid | log_softmax | log_sigmoid
-    how: str  # framework | hand-written | helper | module | layer
+    how: str  # framework | hand-written | helper | module | layer | param
     line: int  # where the producing expression is
     logits: Ref | None = None
     axis: ast.expr | None = None
     call: OpCall | None = None
+    where: str = ""  # the producing expression when it is in another function: "line 41 of model.py"
+    via: tuple[str, ...] = ()  # how the value got here: "passed at train.py:88", ...
+
+    @property
+    def provenance(self) -> str:
+        """`` (the softmax of line 41 of model.py, passed at train.py:88)`` or empty."""
+        parts = ([f"the {self.kind} of {self.where}"] if self.where else []) + list(self.via)
+        return f" ({', '.join(parts)})" if parts else ""
 
 
 def kind_of(ref: Ref) -> str | None:
@@ -117,9 +135,83 @@ def origin(ref: Ref, depth: int = 0) -> Origin | None:
     return result
 
 
+# Operations that move or select entries and keep what each entry is.
+SHAPE_METHODS = frozenset({"view", "reshape", "squeeze", "unsqueeze", "transpose", "permute", "flatten", "ravel",
+                           "gather", "index_select", "take_along_dim", "expand", "expand_as", "view_as", "reshape_as",
+                           "swapaxes", "movedim", "narrow", "select"})
+SHAPE_FUNCS = frozenset({"numpy.reshape", "numpy.squeeze", "numpy.transpose", "numpy.take_along_axis", "numpy.take",
+                         "numpy.ravel", "numpy.expand_dims", "torch.gather", "torch.squeeze", "torch.unsqueeze",
+                         "torch.flatten", "torch.transpose", "torch.take_along_dim", "torch.index_select",
+                         "tensorflow.reshape", "tensorflow.squeeze", "tensorflow.gather", "tensorflow.gather_nd",
+                         "tensorflow.transpose", "tensorflow.expand_dims", "tensorflow.batch_gather"})
+
+
+def _shaped(o: Origin | None) -> Origin | None:
+    """The same kind of value, moved or selected: no rewrite may reuse its logits."""
+    return replace(o, logits=None, call=None) if o is not None else None
+
+
+def _where(ref: Ref, path: str, line: int) -> str:
+    here = ref.scope.module.cache["analysis"].path
+    return f"line {line}" if path == here else f"line {line} of {path}"
+
+
+def shape_operand(ref: Ref) -> Ref | None:
+    node = ref.node
+    if isinstance(node, ast.Attribute) and node.attr in ("T", "mT"):
+        return ref.child(node.value)
+    if isinstance(node, ast.Subscript):
+        return ref.child(node.value)
+    if not isinstance(node, ast.Call):
+        return None
+    f = node.func
+    q = qualname(ref.child(f)) if isinstance(f, (ast.Name, ast.Attribute)) else None
+    if q is not None and framework_of(q):
+        return ref.child(node.args[0]) if normalise(q) in SHAPE_FUNCS and node.args else None
+    if isinstance(f, ast.Attribute) and f.attr in SHAPE_METHODS and q is None:
+        return ref.child(f.value)
+    return None
+
+
+def _returned_at(ret, ref: Ref, index: int | None, how: str, name: str) -> Origin | None:
+    """An origin for the value a call returns, from a summary (kind, items, path, line)."""
+    if ret is None:
+        return None
+    kind, items, path, line = ret
+    if index is not None:
+        kind = items[index] if items is not None and index < len(items) else None
+    if kind is None:
+        return None
+    node = ref.node
+    logits = ref.child(node.args[0]) if isinstance(node, ast.Call) and node.args and index is None else None
+    return Origin(kind, how, node.lineno, logits, where=_where(ref, path, line), via=(f"returned by {name}()",))
+
+
+def _unpacked(ref: Ref, b, depth: int) -> Origin | None:
+    """``logits, probs = self._build_net()``: item ``i`` of what the call returns."""
+    value, index = b.unpack
+    return call_origin(Ref(value, b.owner, b.path), depth, index)
+
+
 def _origin(ref: Ref, depth: int) -> Origin | None:
     node = ref.node
     line = getattr(node, "lineno", 0)
+    if isinstance(node, ast.Name):
+        b = binding_of(ref)
+        if b is None or b is AMBIGUOUS:
+            return None
+        if b.kind == "param":
+            return param_origin(ref, b, depth)
+        if b.unpack is not None:
+            return _unpacked(ref, b, depth)
+        return None
+    if isinstance(node, ast.Subscript) and isinstance(node.slice, ast.Constant) and isinstance(node.slice.value, int):
+        o = call_origin(ref.child(node.value), depth, node.slice.value)
+        if o is not None:
+            return o
+    inner = shape_operand(ref)
+    if inner is not None:
+        return _shaped(origin(inner, depth + 1))
     if isinstance(node, ast.Attribute):  # self.probs, set once in some method
         value = self_attribute(ref)
         return origin(value, depth + 1) if value is not None else None
@@ -139,19 +231,93 @@ def _origin(ref: Ref, depth: int) -> Origin | None:
             return Origin("sigmoid", "hand-written", line, manual_sigmoid(ref))
         return None
     if isinstance(node, ast.Call):
-        callee = ref.child(node.func)
+        return call_origin(ref, depth, None)
+    return None
+
+
+def call_origin(ref: Ref, depth: int, index: int | None) -> Origin | None:
+    """What a call gives (item ``index`` of it, for a returned tuple): a module or
+    layer called on a value, a helper, a method of an instance of a scanned class."""
+    node = strip(ref).node if index is not None else ref.node
+    if not isinstance(node, ast.Call) or depth > 6:
+        return None
+    ref = ref.child(node) if index is None else strip(ref)
+    line = node.lineno
+    callee = ref.child(node.func)
+    inst = _instance_call(callee, depth) if index is None else None
+    if inst is not None:
+        return _returned_at(inst[0], ref, None, "instance", inst[1])
+    if index is None:
         mk = module_kind(callee, depth + 1)
         if mk is not None:
             return Origin(mk, "module", line, ref.child(node.args[0]) if node.args else None)
+    f = node.func
+    if isinstance(f, ast.Attribute):
         # ``model.predict(x)`` of a Keras model whose last layer is an activation
-        if isinstance(node.func, ast.Attribute) and node.func.attr in ("predict", "predict_on_batch", "__call__"):
-            mk = module_kind(ref.child(node.func.value), depth + 1)
+        if index is None and f.attr in ("predict", "predict_on_batch", "__call__"):
+            mk = module_kind(ref.child(f.value), depth + 1)
             if mk is not None:
                 return Origin(mk, "layer", line)
-        rk = returns_kind(callee, depth + 1)
-        if rk is not None:
-            return Origin(rk, "helper", line, ref.child(node.args[0]) if node.args else None)
+        got = _instance_method(ref.child(f.value), f.attr, depth)
+        if got is not None:
+            return _returned_at(got[0], ref, index, "helper", got[1])
+    ret = returned(callee, depth + 1)
+    if ret is not None:
+        name = f.id if isinstance(f, ast.Name) else f.attr if isinstance(f, ast.Attribute) else "helper"
+        return _returned_at(ret, ref, index, "helper", name)
     return None
+
+
+def _instance_call(callee: Ref, depth: int):
+    """``net(x)`` / ``self.pi(x)`` with ``net`` an instance of a class of the scanned
+    tree: (summary of its forward, its name)."""
+    if isinstance(callee.node, ast.Name) and binding_of(callee) in (None, AMBIGUOUS):
+        return None
+    base = strip(callee)
+    if isinstance(base.node, ast.Attribute):
+        v = self_attribute(base)
+        base = strip(v) if v is not None else None
+    if base is None or not isinstance(base.node, ast.Call) or not isinstance(base.node.func, ast.Name):
+        return None
+    return _instance_method(base, "__call__", depth, constructed=True)
+
+
+def _instance_method(obj: Ref, attr: str, depth: int, constructed: bool = False):
+    """``net.act(x)`` / ``self.net.act(x)`` / ``model.apply(params, x)`` with ``net`` an
+    instance of a class of the scanned tree: (summary, name) of that method."""
+    if isinstance(obj.node, ast.Name) and obj.node.id == "self":
+        return None  # self.method(...) is a helper of this class (see ``returned``)
+    base = obj if constructed else strip(obj)
+    if isinstance(base.node, ast.Attribute):
+        v = self_attribute(base)
+        base = strip(v) if v is not None else base
+    if not isinstance(base.node, ast.Call):
+        return None
+    cls_ref = base.child(base.node.func)
+    calls_instance = attr in ("apply", "forward", "__call__", "predict")
+    local = local_class(cls_ref)
+    if local is not None:
+        cls, owner = local
+        if calls_instance:
+            r = instance_returned(cls, owner, depth + 1)
+        else:
+            m = method_of(cls, attr)
+            if m is None:
+                return None
+            from .bindings import scope_for
+
+            r = function_returned((m, scope_for(cls, owner)), depth + 1)
+        name = f"{cls.name}.forward" if calls_instance else f"{cls.name}.{attr}"
+        return ((r.kind, r.items, r.path, r.line), name) if r is not None else None
+    q = qualname(cls_ref) if isinstance(cls_ref.node, (ast.Name, ast.Attribute)) else None
+    if q is None or framework_of(q):
+        return None
+    b = binding_of(cls_ref) if isinstance(cls_ref.node, ast.Name) else None
+    b = b if b is not None and b is not AMBIGUOUS and b.kind == "import" else None
+    member = "" if calls_instance else attr
+    got = project_returned(cls_ref, b, q if b is None else None, "instance" if calls_instance else "function", member)
+    cls_name = q.rsplit(".", 1)[-1]
+    return (got, f"{cls_name}.{'forward' if calls_instance else attr}") if got is not None else None
 
 
 def manual_sigmoid(ref: Ref) -> Ref | None:
@@ -236,6 +402,15 @@ def module_kind(ref: Ref, depth: int = 0) -> str | None:
         return None
     fw = framework_of(q)
     last = q.rsplit(".", 1)[-1]
+    if fw is None:  # an instance of a class of the scanned tree: what its forward returns
+        local = local_class(ref.child(node.func))
+        if local is not None:
+            r = instance_returned(local[0], local[1], depth + 1)
+            return r.kind if r is not None else None
+        b = binding_of(ref.child(node.func)) if isinstance(node.func, ast.Name) else None
+        b = b if b is not None and b is not AMBIGUOUS and b.kind == "import" else None
+        got = project_returned(ref.child(node.func), b, q if b is None else None, "instance")
+        return got[0] if got is not None else None
     if fw not in ("torch", "tf"):
         return None
     if last in _MODULE_KIND:
@@ -294,32 +469,37 @@ def _stmts(fn: ast.AST):
     return statements_with_paths(fn)
 
 
-def returns_kind(callee: Ref, depth: int = 0) -> str | None:
-    """The kind of value a called function returns: a helper defined in the file (a
-    function, a method on ``self``, a lambda) or imported from a scanned module."""
+def returned(callee: Ref, depth: int = 0) -> tuple | None:
+    """(kind, items, path, line) of what a called function returns: a helper defined in
+    the file (a function, a method on ``self``, a lambda) or imported from a scanned
+    module."""
     if depth > 6:
         return None
-    from .summaries import function_summary, project_summary
-
     node = callee.node
+    r = None
     if isinstance(node, ast.Attribute) and isinstance(node.value, ast.Name) and node.value.id == "self":
         fn = _method_of_self(callee, node.attr)
-        return function_summary(fn, depth + 1) if fn is not None else None
-    if isinstance(node, ast.Name):
+        r = function_returned(fn, depth + 1) if fn is not None else None
+    elif isinstance(node, ast.Name):
         b = binding_of(callee)
         if b is None or b is AMBIGUOUS:
             return None
-        if b.kind == "def":
-            return function_summary((b.value, b.owner), depth + 1)
-        if b.kind == "assign" and isinstance(b.value, ast.Lambda):
-            return function_summary((b.value, b.owner), depth + 1)
-        if b.kind == "import":
-            return project_summary(callee, b)
-    if isinstance(node, (ast.Name, ast.Attribute)):
+        if b.kind == "def" or (b.kind == "assign" and isinstance(b.value, ast.Lambda)):
+            r = function_returned((b.value, b.owner), depth + 1)
+        elif b.kind == "import":
+            return project_returned(callee, b)
+        else:
+            return None
+    elif isinstance(node, ast.Attribute):
         q = qualname(callee)
         if q is not None and not framework_of(q):
-            return project_summary(callee, None, q)
-    return None
+            return project_returned(callee, None, q)
+    return (r.kind, r.items, r.path, r.line) if r is not None else None
+
+
+def returns_kind(callee: Ref, depth: int = 0) -> str | None:
+    r = returned(callee, depth)
+    return r[0] if r else None
 
 
 def _method_of_self(ref: Ref, name: str):
