@@ -259,6 +259,14 @@ def parse(path: str, text: str) -> ast.Module | Problem:
             gc.enable()
 
 
+def _imports_project(tree: ast.Module) -> bool:
+    """Imports a name from a module that is not a framework: its calls may hand values to
+    a function of another scanned file, whose parameter joins need to see them."""
+    from .values.names import framework_of
+
+    return any(isinstance(s, ast.ImportFrom) and (s.level or not framework_of(s.module or "")) for s in tree.body)
+
+
 def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None = None) -> FileResult:
     """Analyse one file's text with the given rules."""
     tree = parse(path, text)
@@ -268,7 +276,7 @@ def analyse_source(text: str, path: str, rules: list[Rule], project: dict | None
     lines = _candidate_lines(text, regex) if rules else set()
     # Helpers that return a softmax or sigmoid matter to other files whatever rules run.
     link_lines = _candidate_lines(text, _LINK) if any(w in text for w in LINK_WORDS) else set()
-    if not lines and not link_lines:
+    if not lines and not link_lines and not _imports_project(tree):
         return FileResult(path)
     analysis = Analysis(path, text, tree, project)
     dispatch: dict[type, list[Rule]] = {}

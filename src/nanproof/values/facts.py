@@ -114,6 +114,8 @@ def key(ref: Ref, depth: int = 0):
         return ("name", node.id, id(b) if b is not None and b is not AMBIGUOUS else None)
     if isinstance(node, ast.Constant):
         return ("const", repr(node.value))
+    if isinstance(node, ast.Call) and _draws(ref):
+        return ("draw", id(node))  # each draw is a value of its own; names bound to it share it
     if isinstance(node, ast.Attribute):
         q = qualname(ref)
         if q is not None and framework_of(q):
@@ -129,6 +131,22 @@ def key(ref: Ref, depth: int = 0):
         else:
             parts.append(repr(value))
     return tuple(parts)
+
+
+# Calls that return a new random value each time (JAX's keyed draws are pure: not here).
+_DRAWS = ("numpy.random.", "torch.rand", "torch.normal", "torch.bernoulli", "torch.multinomial", "torch.poisson",
+          "tensorflow.random.", "random.", "builtins.random")
+
+
+def _draws(ref: Ref) -> bool:
+    f = ref.node.func
+    if isinstance(f, ast.Attribute) and f.attr in ("uniform_", "normal_", "random_", "bernoulli_", "exponential_"):
+        return True
+    q = qualname(ref.child(f)) if isinstance(f, (ast.Name, ast.Attribute)) else None
+    if q is None:
+        return False
+    q = normalise(q)
+    return q.startswith(_DRAWS) or ".random." in q and not q.startswith("jax.")
 
 
 def same(a: Ref, b: Ref) -> bool:
