@@ -791,3 +791,24 @@ def test_rules_are_listed_with_family_severity_and_fix_kind():
 
     assert [(get(r).family, get(r).severity, get(r).fix) for r in (BCE, LOS, GUARD)] == [
         ("loss", "error", "review"), ("loss", "error", "auto"), ("loss", "warning", "review")]
+
+
+# -- TensorFlow 1 layer builders hand their activation on -------------------------------
+@pytest.mark.parametrize("layer", ["tf.layers.dense(h, 6, tf.nn.softmax)", "tf.layers.dense(h, 6, activation=tf.nn.softmax)",
+                                   "tf.contrib.layers.fully_connected(h, 6, activation_fn=tf.nn.softmax)"])
+def test_a_layer_builder_with_a_softmax_activation(layer):
+    assert ids(f"""
+        import tensorflow as tf
+        def kiln_policy(h):
+            p = {layer}
+            return tf.log(p)
+    """) == ["log-of-softmax"]
+
+
+def test_a_layer_builder_with_another_activation_is_quiet():
+    assert ids("""
+        import tensorflow as tf
+        def kiln_policy(h):
+            p = tf.layers.dense(h, 6, tf.nn.relu)
+            return tf.log(p)
+    """) == []

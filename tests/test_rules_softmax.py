@@ -607,3 +607,90 @@ def test_keras_cross_entropy_is_found_when_it_is_the_only_rule_run():
     src = "import tensorflow as tf\nfrom mylib import probs\ndef f(x, t):\n    return tf.keras.losses.categorical_crossentropy(t, tf.nn.softmax(x))\n"
     got = scan_source(src, "m.py", Config(rules=frozenset({"cross-entropy-from-probs"}))).findings
     assert [f.rule for f in got] == ["cross-entropy-from-probs"]
+
+
+# -- spellings seen in real code: division functions, guarded sums, two terms, log-mean-exp
+@pytest.mark.parametrize("division", [
+    "torch.div(e, e.sum(-1, keepdim=True))",
+    "e.div(e.sum(dim=-1, keepdim=True))",
+    "torch.true_divide(e, e.sum(-1, keepdim=True))",
+    "e / (e.sum(-1, keepdim=True) + 1e-8)",
+    "e / e.sum(-1, keepdim=True).clamp(min=1e-12)",
+])
+def test_softmax_division_spellings_torch(division):
+    assert ids(f"""
+        import torch
+        def tide_weights(z):
+            e = torch.exp(z)
+            return {division}
+    """) == ["softmax-unshifted"]
+
+
+@pytest.mark.parametrize("division", ["np.divide(e, np.sum(e, axis=1, keepdims=True))", "tf_like(e)"])
+def test_numpy_divide_is_a_division_and_a_user_function_is_not(division):
+    expected = ["softmax-unshifted"] if division.startswith("np.") else []
+    assert ids(f"""
+        import numpy as np
+        def tf_like(v):
+            return v
+        def tide_weights(z):
+            e = np.exp(z)
+            return {division}
+    """) == expected
+
+
+def test_tf_divide_is_a_division():
+    assert ids("""
+        import tensorflow as tf
+        def tide_weights(z):
+            e = tf.exp(z)
+            return tf.divide(e, tf.reduce_sum(e, axis=-1, keepdims=True))
+    """) == ["softmax-unshifted"]
+
+
+def test_a_shifted_softmax_through_torch_div_is_quiet():
+    assert ids("""
+        import torch
+        def tide_weights(z):
+            e = torch.exp(z - z.amax(-1, keepdim=True))
+            return torch.div(e, e.sum(-1, keepdim=True))
+    """) == []
+
+
+def test_an_epsilon_in_the_denominator_makes_the_shift_a_review_fix():
+    [f] = findings("""
+        import numpy as np
+        def tide_weights(z, eps=1e-8):
+            e = np.exp(z)
+            return e / (e.sum(axis=-1, keepdims=True) + eps)
+    """)
+    assert f.rule == "softmax-unshifted" and f.fix.kind == "review" and "epsilon" in f.message
+
+
+def test_a_two_term_softmax_written_out():
+    [f] = findings("""
+        import numpy as np
+        def share(a, b):
+            ea, eb = np.exp(a), np.exp(b)
+            return ea / (ea + eb)
+    """)
+    assert f.rule == "softmax-unshifted" and f.fix is None and "sigmoid(a - b)" in f.suggestion
+
+
+def test_a_two_term_softmax_of_shifted_scores_is_quiet():
+    assert ids("""
+        import numpy as np
+        def share(a, b):
+            m = np.maximum(a, b)
+            ea, eb = np.exp(a - m), np.exp(b - m)
+            return ea / (ea + eb)
+    """) == []
+
+
+def test_log_mean_exp_is_an_unshifted_log_sum_exp():
+    [f] = findings("""
+        import numpy as np
+        def bound(w):
+            return np.log(np.mean(np.exp(w)))
+    """)
+    assert f.rule == "logsumexp-unshifted" and "log-mean-exp" in f.message and f.fix is None and "log(n)" in f.suggestion

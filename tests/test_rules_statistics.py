@@ -936,3 +936,22 @@ def test_ignores_entropy_terms_of_positive_constant_fractions():
 ])
 def test_ignores_x_log_x_of_sizes_taken_from_shapes(src):
     assert "xlogx-nan" not in ids(src)
+
+
+# -- spellings seen in real code: lax.square, a constant factor in front -----------------
+def test_lax_square_in_the_moments():
+    assert ids("""
+        from jax import lax
+        def spread(x):
+            return lax.square(x).mean() - lax.square(x.mean())
+    """) == ["variance-cancellation"]
+
+
+@pytest.mark.parametrize("term", ["-1 * p * torch.log(p)", "p * torch.log(p) * -1"])
+def test_a_minus_one_factor_is_still_an_entropy_term(term):
+    assert ids(f"""
+        import torch
+        def spread(z):
+            p = torch.softmax(z, -1)
+            return ({term}).sum()
+    """) == ["xlogx-nan"]

@@ -25,10 +25,12 @@ def lines_note(ctx: Context, *nodes: ast.AST) -> str:
 
 
 def division(ctx: Context) -> tuple[Ref, Ref, Ref] | None:
-    """(division, numerator, denominator) for ``a / b`` and ``a /= b``."""
+    """(division, numerator, denominator) for ``a / b``, ``a /= b`` and the division
+    functions and methods (``np.divide(a, b)``, ``torch.div(a, b)``, ``a.div(b)``)."""
     node = ctx.node
-    if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div):
-        return ctx.ref(), ctx.ref(node.left), ctx.ref(node.right)
+    parts = facts.div_parts(ctx.ref()) if isinstance(node, (ast.BinOp, ast.Call)) else None
+    if parts is not None:
+        return ctx.ref(), *parts
     if isinstance(node, ast.AugAssign) and isinstance(node.op, ast.Div) and isinstance(node.target, ast.Name):
         return ctx.ref(), ctx.ref(node.target), ctx.ref(node.value)
     return None

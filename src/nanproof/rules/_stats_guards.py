@@ -95,9 +95,10 @@ def _is_log1p_of(p: Ref, u: Ref) -> bool:
 
 
 def _unsign(ref: Ref) -> tuple[Ref, bool]:
-    n = ref.node
-    if isinstance(n, ast.UnaryOp) and isinstance(n.op, ast.USub):
-        return ref.child(n.operand), True
+    """``p`` of ``-p`` or ``-1 * p`` (other factors would be lost by the rewrite)."""
+    inner, factor = facts.unscaled(ref)
+    if factor in (1.0, -1.0):
+        return inner, factor < 0
     return ref, False
 
 

@@ -152,7 +152,7 @@ def _is_nll(ctx: Context, call: ast.Call) -> bool:
 def _is_same_probs(ctx: Context, other: ast.AST, log_ref: Ref) -> bool:
     """``p * log(p)`` is an entropy term, not a likelihood."""
     arg = log_argument(ctx, log_ref.node)
-    return arg is not None and facts.same(ctx.ref(other), facts.unguard(arg))
+    return arg is not None and facts.same(facts.unscaled(ctx.ref(other))[0], facts.unguard(arg))
 
 
 # Keras losses that take probabilities unless from_logits=True: (y_true, y_pred).

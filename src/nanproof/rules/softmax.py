@@ -3,6 +3,7 @@ missing keepdims, and PyTorch softmax without dim."""
 from __future__ import annotations
 
 import ast
+from dataclasses import replace
 
 from ..values import facts, origins
 from ..analyse import Context, Hit
@@ -24,7 +25,7 @@ from ._shared import (
     used_elsewhere,
 )
 
-_DIV = (ast.BinOp, ast.AugAssign)
+_DIV = (ast.BinOp, ast.AugAssign, ast.Call)
 
 
 # ---------------------------------------------------------------------------------------
@@ -109,7 +110,14 @@ def softmax_unshifted(ctx: Context):
         f"softmax without a max shift{lines_note(ctx, sm.numerator.exp.node, sm.denominator.ref.node)}: exp overflows "
         f"once a logit exceeds {OVERFLOW}, and inf/inf is nan{mask}"
     )
+    if sm.denominator.call is None:  # ea / (ea + eb)
+        yield Hit(ctx.node, msg, suggestion="subtract max(a, b) from both exponents, or write it as sigmoid(a - b)")
+        return
     fix = _softmax_fix(ctx, sm, num)
+    if fix is not None and facts.unguard(den).node is not facts.strip(den).node:
+        # e / (sum(e) + eps): the shift scales the sum but not the epsilon
+        fix = replace(fix, kind="review")
+        msg += "; the epsilon added to the sum does not prevent it (after the shift it weighs differently: review)"
     yield Hit(ctx.node, msg, fix=fix, suggestion=None if fix else "subtract the max along the summed axis before exp, or call the framework softmax")
 
 # ---------------------------------------------------------------------------------------
@@ -240,7 +248,8 @@ def max_shifted(ref: Ref) -> bool:
 
 
 def _lse_terms(ref: Ref) -> tuple[Reduction, origins.ExpTerm] | None:
-    red = facts.reduction(ref, "sum")
+    """The reduction and exp term of ``log(sum(exp(u)))`` or ``log(mean(exp(u)))``."""
+    red = facts.reduction(ref, "sum", "mean")
     if red is None:
         return None
     op_node = facts.strip(red.operand).node
@@ -311,10 +320,15 @@ def logsumexp_unshifted(ctx: Context):
         if bounded
         else f"exp overflows to inf once an argument exceeds {OVERFLOW}, and underflow of all terms gives -inf"
     )
-    code = _lse_text(ctx, red, t)
+    mean = red.op == "mean"
+    code = None if mean else _lse_text(ctx, red, t)
     fix = ctx.fix(code[0], [ctx.edit(ctx.node, code[1])]) if code else None
-    msg = f"log-sum-exp without a max shift{lines_note(ctx, t.exp.node, red.ref.node)}: {why}"
-    yield Hit(ctx.node, msg, fix=fix, suggestion=None if fix else "use the framework logsumexp (torch.logsumexp, scipy.special.logsumexp, jax.nn.logsumexp, tf.reduce_logsumexp)")
+    what = "log-mean-exp" if mean else "log-sum-exp"
+    msg = f"{what} without a max shift{lines_note(ctx, t.exp.node, red.ref.node)}: {why}"
+    hint = "use the framework logsumexp (torch.logsumexp, scipy.special.logsumexp, jax.nn.logsumexp, tf.reduce_logsumexp)"
+    if mean:
+        hint += " and subtract log(n), n the number of terms averaged"
+    yield Hit(ctx.node, msg, fix=fix, suggestion=None if fix else hint)
 
 
 @rule(

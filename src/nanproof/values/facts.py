@@ -92,6 +92,45 @@ def strip(ref: Ref) -> Ref:
     return ref
 
 
+def div_parts(ref: Ref) -> tuple[Ref, Ref] | None:
+    """(numerator, denominator) of ``a / b``, ``np.divide(a, b)``, ``torch.div(a, b)``,
+    ``a.div(b)``, ``tf.divide(a, b)``."""
+    node = ref.node
+    if isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div):
+        return ref.child(node.left), ref.child(node.right)
+    if isinstance(node, ast.Call) and not any(isinstance(a, ast.Starred) for a in node.args):
+        oc = op_of(ref)
+        if oc is None or oc.op != "divide" or any(k.arg in ("rounding_mode", "out", "where") for k in node.keywords):
+            return None
+        if oc.is_method and len(node.args) == 1:
+            return ref.child(oc.receiver), ref.child(node.args[0])
+        if not oc.is_method and len(node.args) == 2:
+            return ref.child(node.args[0]), ref.child(node.args[1])
+    return None
+
+
+def unscaled(ref: Ref) -> tuple[Ref, float]:
+    """``x`` and the factor of ``-x``, ``-1 * x``, ``0.5 * x``, ``x * c``, ``x / c``
+    (numeric constants only)."""
+    factor = 1.0
+    for _ in range(6):
+        n = ref.node
+        if isinstance(n, ast.UnaryOp) and isinstance(n.op, ast.USub):
+            ref, factor = ref.child(n.operand), -factor
+            continue
+        if isinstance(n, ast.BinOp) and isinstance(n.op, (ast.Mult, ast.Div)):
+            c_right = _const(n.right)
+            c_left = _const(n.left) if isinstance(n.op, ast.Mult) else None
+            if c_left is not None and c_left != 0:
+                ref, factor = ref.child(n.right), factor * c_left
+                continue
+            if c_right is not None and c_right != 0:
+                ref, factor = ref.child(n.left), factor * (c_right if isinstance(n.op, ast.Mult) else 1 / c_right)
+                continue
+        break
+    return ref, factor
+
+
 def op(ref: Ref, *names: str) -> OpCall | None:
     oc = op_of(strip(ref))
     return oc if oc is not None and (not names or oc.op in names) else None
@@ -162,7 +201,7 @@ class Reduction:
     operand: Ref
     axis: ast.expr | None
     keepdims: bool  # keepdims=True, or re-expanded afterwards (s[:, None], reshape(-1, 1))
-    call: OpCall
+    call: OpCall | None  # None: terms added up one by one (``ea + eb``)
     ref: Ref  # the reduction call itself
 
     @property

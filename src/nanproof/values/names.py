@@ -70,7 +70,7 @@ _OPS: dict[str, tuple[str, ...]] = {
     "min": ("numpy.min", "numpy.amin", "numpy.nanmin", "torch.min", "torch.amin", "tensorflow.reduce_min", "builtins.min"),
     "prod": ("numpy.prod", "torch.prod", "tensorflow.reduce_prod", "math.prod"),
     "abs": ("numpy.abs", "numpy.absolute", "numpy.fabs", "torch.abs", "tensorflow.abs", "builtins.abs", "math.fabs"),
-    "square": ("numpy.square", "torch.square", "tensorflow.square"),
+    "square": ("numpy.square", "torch.square", "tensorflow.square", "jax.lax.square"),
     "sqrt": ("numpy.sqrt", "math.sqrt", "torch.sqrt", "tensorflow.sqrt"),
     "softmax": ("scipy.special.softmax", "torch.softmax", "torch.F.softmax", "nn.softmax", "numpy.softmax"),
     "log_softmax": ("scipy.special.log_softmax", "torch.log_softmax", "torch.F.log_softmax", "nn.log_softmax", "numpy.log_softmax"),
@@ -81,6 +81,8 @@ _OPS: dict[str, tuple[str, ...]] = {
     "softplus": ("torch.F.softplus", "nn.softplus", "tensorflow.softplus", "numpy.softplus"),
     "relu": ("torch.relu", "torch.F.relu", "nn.relu", "numpy.relu"),
     "logaddexp": ("numpy.logaddexp", "torch.logaddexp", "numpy.logaddexp"),
+    "divide": ("numpy.divide", "numpy.true_divide", "torch.div", "torch.divide", "torch.true_divide",
+               "tensorflow.divide", "tensorflow.truediv", "tensorflow.realdiv", "tensorflow.div"),
     "clip": ("numpy.clip", "torch.clamp", "torch.clip", "tensorflow.clip_by_value"),
     "minimum": ("numpy.minimum", "numpy.fmin", "torch.minimum", "torch.fmin", "tensorflow.minimum"),
     "maximum": ("numpy.maximum", "numpy.fmax", "torch.maximum", "torch.fmax", "tensorflow.maximum"),
@@ -123,6 +125,7 @@ METHODS = {
     "clone": "identity", "cpu": "identity", "cuda": "identity", "numpy": "identity", "copy": "identity",
     "neg": "neg", "negative": "neg", "random": "rand", "rand": "rand", "random_sample": "rand", "matmul": "matmul", "dot": "matmul", "mm": "matmul", "mv": "matmul", "norm": "norm", "var": "var",
     "log2": "log2", "log10": "log10", "pow": "power", "nan_to_num": "nan_to_num",
+    "div": "divide", "divide": "divide", "true_divide": "divide",
 }
 NO_ARG_METHODS = {"neg", "negative", "exp", "log", "log2", "log10", "log1p", "expm1", "sigmoid", "abs", "square", "sqrt", "relu",
                   "detach", "float", "double", "half", "contiguous", "clone", "cpu", "numpy"}

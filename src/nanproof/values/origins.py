@@ -9,7 +9,7 @@ from dataclasses import dataclass
 from dataclasses import replace
 
 from .bindings import Ref
-from .facts import AMBIGUOUS, Reduction, _const, binding_of, reduction, same, strip
+from .facts import AMBIGUOUS, Reduction, _const, binding_of, div_parts, reduction, same, strip, unguard
 from .names import OpCall, framework_of, normalise, op_of, qualname
 from .summaries import (
     function_returned,
@@ -56,6 +56,20 @@ def exp_term(ref: Ref, depth: int = 0) -> ExpTerm | None:
     return None
 
 
+def _two_terms(division: Ref, num: ExpTerm, num_ref: Ref, den_ref: Ref) -> "ManualSoftmax | None":
+    den = strip(den_ref)
+    node = den.node
+    if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Add)) or num.masked:
+        return None
+    a, b = den.child(node.left), den.child(node.right)
+    ta, tb = exp_term(a), exp_term(b)
+    if ta is None or tb is None or ta.masked or tb.masked:
+        return None
+    if not any(same(num.arg, t.arg) for t in (ta, tb)) or same(ta.arg, tb.arg):
+        return None
+    return ManualSoftmax(division, num, Reduction("sum", den, None, True, None, den))
+
+
 @dataclass(frozen=True)
 class ManualSoftmax:
     division: Ref
@@ -66,20 +80,22 @@ class ManualSoftmax:
 def manual_softmax(ref: Ref) -> ManualSoftmax | None:
     """``e / sum(e)`` with ``e = exp(u)`` (shifted or not)."""
     ref = strip(ref)
-    node = ref.node
-    if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Div)):
-        return None
-    return softmax_parts(ref, ref.child(node.left), ref.child(node.right))
+    parts = div_parts(ref)
+    return softmax_parts(ref, *parts) if parts is not None else None
 
 
 def softmax_parts(division: Ref, num_ref: Ref, den_ref: Ref) -> ManualSoftmax | None:
-    """The numerator is an exp term and the denominator sums the same exp values."""
+    """The numerator is an exp term and the denominator sums the same exp values (an
+    epsilon added to the sum or a floor under it changes nothing: still unshifted).
+    Two terms written out, ``ea / (ea + eb)``, are a softmax over two entries: its
+    denominator is a ``Reduction`` with no call."""
     num = exp_term(num_ref)
     if num is None:
         return None
+    den_ref = unguard(den_ref)
     red = reduction(den_ref, "sum")
     if red is None:
-        return None
+        return _two_terms(division, num, num_ref, den_ref)
     if not (same(red.operand, num_ref) or same(red.operand, num.exp)):
         den = exp_term(red.operand)
         if den is None or not same(den.arg, num.arg):
@@ -244,6 +260,9 @@ def call_origin(ref: Ref, depth: int, index: int | None) -> Origin | None:
     ref = ref.child(node) if index is None else strip(ref)
     line = node.lineno
     callee = ref.child(node.func)
+    built = _built_layer_kind(ref) if index is None else None
+    if built is not None:
+        return Origin(built, "layer", line)
     inst = _instance_call(callee, depth) if index is None else None
     if inst is not None:
         return _returned_at(inst[0], ref, None, "instance", inst[1])
@@ -266,6 +285,31 @@ def call_origin(ref: Ref, depth: int, index: int | None) -> Origin | None:
         name = f.id if isinstance(f, ast.Name) else f.attr if isinstance(f, ast.Attribute) else "helper"
         return _returned_at(ret, ref, index, "helper", name)
     return None
+
+
+# Functional layer builders of TensorFlow 1 that apply their activation to the output:
+# name -> position of the activation argument after the input.
+_LAYER_BUILDERS = {"dense": 2, "fully_connected": 2}
+
+
+def _built_layer_kind(ref: Ref) -> str | None:
+    """``tf.layers.dense(h, n, tf.nn.softmax)`` / ``activation=`` /
+    ``slim.fully_connected(h, n, activation_fn=tf.sigmoid)``: the activation's kind."""
+    node = ref.node
+    f = node.func
+    if not isinstance(f, (ast.Name, ast.Attribute)):
+        return None
+    last = f.attr if isinstance(f, ast.Attribute) else f.id
+    if last not in _LAYER_BUILDERS:
+        return None
+    q = qualname(ref.child(f))
+    if q is None or framework_of(q) != "tf" or ".layers." not in q and ".slim." not in q:
+        return None
+    act = next((k.value for k in node.keywords if k.arg in ("activation", "activation_fn")), None)
+    pos = _LAYER_BUILDERS[last]
+    if act is None and len(node.args) > pos and not any(isinstance(a, ast.Starred) for a in node.args):
+        act = node.args[pos]
+    return _activation_kind(act, ref) if act is not None else None
 
 
 def _instance_call(callee: Ref, depth: int):
