@@ -973,3 +973,53 @@ def test_ignores_log_of_one_plus_a_tensor_size():
 ])
 def test_ignores_the_stable_softplus_written_with_neg(src):
     assert "softplus-manual" not in ids(src)
+
+
+# -- false alarms seen on real code, and an algebraic variant ----------------------------
+def test_exp_minus_one_only_compared_with_a_threshold_is_quiet():
+    assert ids("""
+        import numpy as np
+        def drifted(log_gain):
+            r = np.exp(log_gain) - 1
+            if abs(r) > 0.2:
+                return True
+            return np.exp(log_gain) - 1 < -0.5
+    """) == []
+
+
+def test_exp_minus_one_compared_and_also_used_in_arithmetic_is_flagged():
+    assert ids("""
+        import numpy as np
+        def drifted(log_gain):
+            r = np.exp(log_gain) - 1
+            if abs(r) > 0.2:
+                return r * 100
+            return 0.0
+    """) == ["expm1-manual"]
+
+
+def test_a_distributed_factor_is_still_exp_minus_one():
+    [f] = findings("""
+        import numpy as np
+        def soft_floor(x, alpha):
+            return np.where(x > 0, x, alpha * np.exp(x) - alpha)
+    """)
+    assert f.rule == "expm1-manual" and f.fix.kind == "auto" and f.fix.edits[0].text == "alpha * np.expm1(x)"
+
+
+def test_softplus_with_minus_abs_from_a_where_upstream_is_quiet():
+    assert ids("""
+        import numpy as np
+        def smooth_relu(x):
+            neg_abs = np.where(x > 0, -x, x)
+            return np.log1p(np.exp(neg_abs)) + np.maximum(x, 0)
+    """) == []
+
+
+def test_a_where_that_keeps_positive_values_is_not_minus_abs():
+    assert ids("""
+        import numpy as np
+        def smooth_relu(x):
+            v = np.where(x > 0, x, -x)
+            return np.log1p(np.exp(v))
+    """) == ["softplus-manual"]

@@ -694,3 +694,23 @@ def test_log_mean_exp_is_an_unshifted_log_sum_exp():
             return np.log(np.mean(np.exp(w)))
     """)
     assert f.rule == "logsumexp-unshifted" and "log-mean-exp" in f.message and f.fix is None and "log(n)" in f.suggestion
+
+
+def test_a_multiplicative_weight_update_renormalised_is_not_a_softmax():
+    assert ids("""
+        import numpy as np
+        def reweight(w, y, h, step):
+            w *= np.exp(-step * y * h)
+            w /= w.sum()
+            return w
+    """) == []
+
+
+def test_weights_rebuilt_from_exp_alone_are_a_softmax():
+    assert ids("""
+        import numpy as np
+        def reweight(scores):
+            w = np.exp(scores)
+            w /= w.sum()
+            return w
+    """) == ["softmax-unshifted"]

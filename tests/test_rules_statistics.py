@@ -955,3 +955,50 @@ def test_a_minus_one_factor_is_still_an_entropy_term(term):
             p = torch.softmax(z, -1)
             return ({term}).sum()
     """) == ["xlogx-nan"]
+
+
+def test_entropy_of_a_configuration_scalar_is_quiet():
+    assert ids("""
+        import math
+        def smoothing_floor(n_classes, smoothing=0.1):
+            confidence = 1.0 - smoothing
+            return -(confidence * math.log(confidence))
+    """) == []
+
+
+def test_entropy_of_counts_of_things_that_occur_is_quiet():
+    assert ids("""
+        import math
+        from collections import Counter
+        def token_entropy(tokens):
+            total = len(tokens)
+            h = 0.0
+            for tok in set(tokens):
+                count = tokens.count(tok)
+                p = count / total
+                h -= p * math.log(p)
+            for _, c in Counter(tokens).items():
+                q = c / total
+                h -= q * math.log(q)
+            return h
+    """) == []
+
+
+def test_entropy_of_bin_counts_that_may_be_zero_is_flagged():
+    assert ids("""
+        import numpy as np
+        def bin_entropy(x, bins):
+            p = np.bincount(x, minlength=bins) / len(x)
+            return -np.sum(p * np.log(p))
+    """) == ["xlogx-nan"]
+
+
+def test_pixel_offsets_as_python_scalars_are_quiet_but_arrays_are_not():
+    assert ids("""
+        import math
+        import numpy as np
+        def reach(x0, y0, x1, y1, dx, dy, pts):
+            a = math.sqrt((x1 - x0) ** 2 + (y1 - y0) ** 2)
+            b = math.sqrt(dx ** 2 + dy ** 2)
+            return a, b, np.sqrt(pts[:, 0] ** 2 + pts[:, 1] ** 2)
+    """) == ["norm-overflow"]

@@ -35,6 +35,42 @@ def division(ctx: Context) -> tuple[Ref, Ref, Ref] | None:
         return ctx.ref(), ctx.ref(node.target), ctx.ref(node.value)
     return None
 
+def _parents(root: ast.AST) -> dict[int, ast.AST]:
+    return {id(c): n for n in ast.walk(root) for c in ast.iter_child_nodes(n)}
+
+
+def _compared(node: ast.AST, parents: dict[int, ast.AST]) -> bool:
+    """``node`` (or ``abs(node)``) is an operand of a comparison and nothing else."""
+    up = parents.get(id(node))
+    if isinstance(up, ast.Call) and isinstance(up.func, (ast.Name, ast.Attribute)) and \
+            getattr(up.func, "id", getattr(up.func, "attr", "")) in ("abs", "fabs", "absolute") and len(up.args) == 1:
+        node, up = up, parents.get(id(up))
+    return isinstance(up, ast.Compare)
+
+
+def only_compared(ctx: Context) -> bool:
+    """The value of ``ctx.node`` only decides a comparison (``abs(exp(x) - 1) > tol``,
+    or a name bound to it and read only in comparisons): a threshold test does not need
+    the digits a cancellation loses."""
+    stmt = ctx.stmt
+    if _compared(ctx.node, _parents(stmt)):
+        return True
+    if not (isinstance(stmt, ast.Assign) and stmt.value is ctx.node and len(stmt.targets) == 1 and isinstance(stmt.targets[0], ast.Name)):
+        return False
+    name = stmt.targets[0].id
+    b = ctx.scope.lookup(name, (stmt.end_lineno, stmt.end_col_offset), ctx.path)
+    if b is None or b is facts.AMBIGUOUS or b.stmt is not stmt:
+        return False
+    uses = [n for n in ctx.scope.loads(name) if ctx.scope.lookup(name, (n.lineno, n.col_offset), b.path) in (b, facts.AMBIGUOUS)]
+    if not uses:
+        return False
+    body = ctx.scope.node
+    parents = ctx.scope.cache.get("parents")
+    if parents is None:
+        parents = ctx.scope.cache["parents"] = _parents(body)
+    return all(_compared(n, parents) for n in uses)
+
+
 def used_elsewhere(ref: Ref, within: ast.AST) -> bool:
     """Is the value held in the name ``ref`` also read outside ``within``?"""
     b = facts.binding_of(ref)

@@ -161,9 +161,11 @@ def positive(ref: Ref, depth: int = 0) -> bool:
         return False
     s = facts.strip(ref)
     n = s.node
-    c = constant(s)  # 3 / 5, math.e, names bound to constants
+    c = constant(s, defaults=True)  # 3 / 5, math.e, names bound to constants, 1.0 - smoothing
     if c is not None:
         return c > 0
+    if _a_count(s) or (isinstance(n, ast.BinOp) and isinstance(n.op, ast.Div) and _a_count(s.child(n.left))):
+        return True  # count / total with count >= 1
     if facts.is_epsilon(s) or facts.unguard(s).node is not n or _counting_from_one(s):
         return True
     if isinstance(n, ast.BinOp) and isinstance(n.op, ast.Add):
@@ -176,6 +178,32 @@ def positive(ref: Ref, depth: int = 0) -> bool:
     if oc is not None and oc.op == "maximum" and len(n.args) == 2:
         return any(positive(s.child(a), depth + 1) for a in n.args)
     return False
+
+
+def _a_count(ref: Ref) -> bool:
+    """A count of something that occurs: ``xs.count(v)`` for ``v`` drawn from ``xs`` (or
+    ``set(xs)``), or the values of a ``Counter`` (``for w, c in counts.items()``)."""
+    s = facts.strip(ref)
+    n = s.node
+    if isinstance(n, ast.Call) and isinstance(n.func, ast.Attribute) and n.func.attr == "count" and len(n.args) == 1:
+        b = facts.binding_of(s.child(n.args[0]))
+        if b is None or b is AMBIGUOUS or b.kind != "loop" or not isinstance(b.stmt, ast.For):
+            return False
+        it = b.stmt.iter
+        if isinstance(it, ast.Call) and isinstance(it.func, ast.Name) and it.func.id == "set" and len(it.args) == 1:
+            it = it.args[0]
+        return facts.same(s.child(it), s.child(n.func.value))
+    b = facts.binding_of(s) if isinstance(n, ast.Name) else None
+    if b is None or b is AMBIGUOUS or not isinstance(b.stmt, (ast.For, ast.comprehension)):
+        return False
+    it = b.stmt.iter
+    if not (isinstance(it, ast.Call) and isinstance(it.func, ast.Attribute) and it.func.attr in ("items", "values", "most_common")):
+        return False
+    target = b.stmt.target
+    if it.func.attr in ("items", "most_common") and not (isinstance(target, ast.Tuple) and len(target.elts) == 2 and target.elts[1] is b.target):
+        return False
+    counter = facts.strip(s.child(it.func.value)).node
+    return isinstance(counter, ast.Call) and qualname(s.child(counter.func)) in ("collections.Counter", "builtins.Counter")
 
 
 def _counting_from_one(ref: Ref) -> bool:

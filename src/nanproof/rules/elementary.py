@@ -16,7 +16,7 @@ from ..values.bindings import Ref
 from ..values.names import OpCall, normalise
 from ..registry import rule
 from ..rewrite import import_edit, paren, reachable, simple
-from ._shared import OVERFLOW, lines_note, names_stable, used_elsewhere
+from ._shared import OVERFLOW, lines_note, names_stable, only_compared, used_elsewhere
 
 # Half an ulp of 1.0 (numpy.finfo(t).eps / 2, IEEE 754): the digits of x below it are
 # rounded away in 1 + x.
@@ -197,6 +197,20 @@ def _minus_one(ctx: Context) -> tuple[Ref, bool] | None:
     return None
 
 
+def _scaled_minus(ctx: Context) -> tuple[Ref, Ref] | None:
+    """``a * exp(x) - a`` (or ``exp(x) * a - a``): (the exp, the factor a)."""
+    node = ctx.node
+    if not (isinstance(node, ast.BinOp) and isinstance(node.op, ast.Sub)):
+        return None
+    left = node.left
+    if not (isinstance(left, ast.BinOp) and isinstance(left.op, ast.Mult)):
+        return None
+    for e, a in ((left.right, left.left), (left.left, left.right)):
+        if facts.same(ctx.ref(a), ctx.ref(node.right)) and facts.op(ctx.ref(e), "exp") is not None:
+            return ctx.ref(e), ctx.ref(a)
+    return None
+
+
 @rule(
     "expm1-manual",
     family="elementary",
@@ -208,23 +222,30 @@ def _minus_one(ctx: Context) -> tuple[Ref, bool] | None:
 )
 def expm1_manual(ctx: Context):
     parts = _minus_one(ctx)
+    scale = None
+    if parts is None and (sm := _scaled_minus(ctx)) is not None:
+        parts, scale = (sm[0], False), sm[1]
     exp = facts.strip(parts[0]) if parts else None
     got = _unary(exp, "exp") if exp else None
     if got is None:
         return
     oc, u = got
     # exp(n) - 1 for an integer n cannot cancel; exp(log(x)) - 1 is the round trip's.
-    if ranges.harmless_term(u) or facts.op(u, "log") is not None:
+    if ranges.harmless_term(u) or facts.op(u, "log") is not None or only_compared(ctx):
         return
     negated = parts[1]
     form, cure = ("1 - exp(x)", "-expm1(x)") if negated else ("exp(x) - 1", "expm1(x)")
+    if scale is not None:
+        form, cure = "a * exp(x) - a", "a * expm1(x)"
     msg = (
         f"{form}{lines_note(ctx, exp.node)} cancels when x is small: exp(1e-10) - 1 keeps only about half of its "
         f"16 digits in float64, and the difference is 0.0 once |x| is below {ROUNDS_AWAY}; use {cure}"
     )
     fix = None
     if isinstance(ctx.node, ast.BinOp) and _direct(parts[0]) and _movable(ctx, u.node, u) and (code := _renamed(ctx, oc, "expm1")):
-        fix = _fix(ctx, [ctx.edit(ctx.node, ("-" if negated else "") + code[0])], code[1])
+        factor = f"{paren(ctx.text(scale.node), scale.node)} * " if scale is not None else ""
+        if scale is None or simple(scale.node):
+            fix = _fix(ctx, [ctx.edit(ctx.node, ("-" if negated else "") + factor + code[0])], code[1])
     yield Hit(ctx.node, msg, fix=fix, suggestion=None if fix else cure)
 
 

@@ -86,6 +86,16 @@ def _softmax_fix(ctx: Context, sm: ManualSoftmax, num_ref: Ref):
     return ctx.fix(kind, edits)
 
 
+def _reweighting(num: Ref) -> bool:
+    """``w *= exp(-a * y * h); w /= w.sum()`` (or ``w = w * exp(...)``): a multiplicative
+    update of weights that existed before, renormalised; not a softmax of logits."""
+    if not isinstance(num.node, ast.Name):
+        return False
+    value = facts.strip(num).node
+    return isinstance(value, ast.BinOp) and isinstance(value.op, ast.Mult) and any(
+        isinstance(side, ast.Name) and side.id == num.node.id for side in (value.left, value.right))
+
+
 @rule(
     "softmax-unshifted",
     family="softmax",
@@ -101,7 +111,7 @@ def softmax_unshifted(ctx: Context):
         return
     div, num, den = parts
     sm = origins.softmax_parts(div, num, den)
-    if sm is None or facts.exp_is_safe(sm.numerator.arg):
+    if sm is None or facts.exp_is_safe(sm.numerator.arg) or _reweighting(num):
         return
     mask = ""
     if sm.numerator.masked:

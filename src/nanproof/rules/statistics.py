@@ -7,6 +7,7 @@ module holds the four rule declarations and their rewrites."""
 from __future__ import annotations
 
 import ast
+import re
 
 from ..values import facts, origins, ranges
 from ..analyse import Context, Hit
@@ -405,8 +406,10 @@ def norm_overflow(ctx: Context):
     )
     terms = square_terms(arg)
     if terms is not None:
-        python_ints = oc is not None and oc.framework in ("math", "builtins") and all(evident_int(t) for t in terms)
-        if python_ints or any(scaled(t) for t in terms):
+        scalars = oc is not None and oc.framework in ("math", "builtins")
+        if scalars and (all(evident_int(t) for t in terms) or all(_offset(t) for t in terms)):
+            return  # Python ints, or offsets between points (pixels, grid cells): no 1e154 there
+        if any(scaled(t) for t in terms):
             return
         fix = _hypot_fix(ctx, oc, terms)
         msg = f"sqrt of a sum of squares{lines_note(ctx, facts.strip(arg).node)}: {why}; hypot scales instead"
@@ -425,6 +428,17 @@ def norm_overflow(ctx: Context):
         "largest magnitude first: m * sqrt(sum((x / m)**2))"
     )
     yield Hit(node, msg, fix=fix, suggestion=None if fix else hint)
+
+
+_OFFSET_NAME = re.compile(r"^(d|delta_?|off(set)?_?)[xyzuvrc]\d?$|^[xyz]_?(diff|delta|off(set)?)$", re.I)
+
+
+def _offset(ref: Ref) -> bool:
+    """A difference of two coordinates (``x1 - x0``) or a name that says it is one (``dx``)."""
+    if isinstance(ref.node, ast.Name) and _OFFSET_NAME.match(ref.node.id):
+        return True
+    n = facts.strip(ref).node
+    return isinstance(n, ast.BinOp) and isinstance(n.op, ast.Sub)
 
 
 def _hypot_fix(ctx: Context, oc: OpCall | None, terms: list[Ref]):

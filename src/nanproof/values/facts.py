@@ -348,6 +348,45 @@ def nonneg(ref: Ref, depth: int = 0) -> bool:
     return False
 
 
+def _sign_test(ref: Ref, cond: ast.expr) -> tuple[Ref, bool] | None:
+    """(x, True) for ``x > 0`` / ``x >= 0`` / ``0 < x``; (x, False) for ``x < 0`` / ``x <= 0``."""
+    if not (isinstance(cond, ast.Compare) and len(cond.ops) == 1):
+        return None
+    left, op_, right = cond.left, cond.ops[0], cond.comparators[0]
+    if _const(right) == 0:
+        x, positive = left, isinstance(op_, (ast.Gt, ast.GtE))
+    elif _const(left) == 0:
+        x, positive = right, isinstance(op_, (ast.Lt, ast.LtE))
+    else:
+        return None
+    if not isinstance(op_, (ast.Gt, ast.GtE, ast.Lt, ast.LtE)):
+        return None
+    return ref.child(x), positive
+
+
+def _where_nonpos(ref: Ref, cond: ast.expr, a: ast.expr, b: ast.expr, depth: int) -> bool:
+    """``where(x > 0, -x, x)`` (and the mirrored forms) is -|x|; otherwise both branches
+    must be non-positive."""
+    test = _sign_test(ref, cond)
+    ra, rb = ref.child(a), ref.child(b)
+
+    def branch(r: Ref, x_positive: bool) -> bool:
+        if nonpos(r, depth + 1):
+            return True
+        if test is None:
+            return False
+        x, _ = test
+        n = strip(r).node
+        if x_positive:  # here x >= 0: -x is <= 0
+            return isinstance(n, ast.UnaryOp) and isinstance(n.op, ast.USub) and same(r.child(n.operand), x)
+        return same(r, x)  # here x <= 0
+
+    if test is None:
+        return nonpos(ra, depth + 1) and nonpos(rb, depth + 1)
+    pos = test[1]
+    return branch(ra, pos) and branch(rb, not pos)
+
+
 def nonpos(ref: Ref, depth: int = 0) -> bool:
     if depth > MAX_DEPTH:
         return False
@@ -382,6 +421,8 @@ def nonpos(ref: Ref, depth: int = 0) -> bool:
             return True
         if oc.op == "neg" and oc.subject is not None:
             return nonneg(ref.child(oc.subject), depth + 1)
+        if oc.op == "where" and len(oc.call.args) == 3:
+            return _where_nonpos(ref, *oc.call.args, depth=depth)
         if oc.op == "log":  # log of a probability
             from .origins import kind_of  # origins builds on this module
 

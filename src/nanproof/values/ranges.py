@@ -154,21 +154,40 @@ _NAMED_CONSTANTS = {"math.pi": math.pi, "math.e": math.e, "math.tau": math.tau, 
 _ARITHMETIC = {ast.Add: operator.add, ast.Sub: operator.sub, ast.Mult: operator.mul, ast.Div: operator.truediv, ast.Pow: operator.pow}
 
 
-def constant(ref: Ref, depth: int = 0) -> float | None:
+def param_default(ref: Ref) -> float | None:
+    """The numeric default of the parameter a name refers to (``smoothing=0.1``)."""
+    b = binding_of(ref) if isinstance(ref.node, ast.Name) else None
+    if b is None or b is AMBIGUOUS or b.kind != "param" or b.owner is None:
+        return None
+    a = getattr(b.owner.node, "args", None)
+    if a is None:
+        return None
+    positional = [*a.posonlyargs, *a.args]
+    pairs = list(zip(positional[len(positional) - len(a.defaults):], a.defaults)) + list(zip(a.kwonlyargs, a.kw_defaults))
+    for arg, default in pairs:
+        if arg is b.target and default is not None:
+            return _const(default)
+    return None
+
+
+def constant(ref: Ref, depth: int = 0, defaults: bool = False) -> float | None:
     """The value of a constant expression: number literals, ``math.pi`` / ``np.e``, and
-    arithmetic of them, directly or through names assigned once."""
+    arithmetic of them, directly or through names assigned once. With ``defaults``, a
+    parameter counts as its numeric default (a configuration value such as
+    ``smoothing=0.1``)."""
     ref = strip(ref)
     node = ref.node
     c = _const(node)
     if c is not None or depth > MAX_DEPTH:
         return c
     if isinstance(node, (ast.Name, ast.Attribute)):
-        return _NAMED_CONSTANTS.get(_qual(ref, node) or "")
+        v = _NAMED_CONSTANTS.get(_qual(ref, node) or "")
+        return param_default(ref) if v is None and defaults else v
     if isinstance(node, ast.UnaryOp) and isinstance(node.op, (ast.USub, ast.UAdd)):
-        v = constant(ref.child(node.operand), depth + 1)
+        v = constant(ref.child(node.operand), depth + 1, defaults)
         return None if v is None else (-v if isinstance(node.op, ast.USub) else v)
     if isinstance(node, ast.BinOp) and type(node.op) in _ARITHMETIC:
-        a, b = constant(ref.child(node.left), depth + 1), constant(ref.child(node.right), depth + 1)
+        a, b = constant(ref.child(node.left), depth + 1, defaults), constant(ref.child(node.right), depth + 1, defaults)
         try:
             v = _ARITHMETIC[type(node.op)](a, b) if a is not None and b is not None else None
         except (ArithmeticError, ValueError):
@@ -180,7 +199,7 @@ def constant(ref: Ref, depth: int = 0) -> float | None:
 def harmless_term(ref: Ref) -> bool:
     """``1 + x`` loses nothing worth a finding: x is an integer (1 + n is exact), or a
     constant not below HALF_DIGITS in magnitude."""
-    c = constant(ref)
+    c = constant(ref, defaults=True)
     if c is not None:
         return c == 0 or abs(c) >= HALF_DIGITS
     return integral(ref)
