@@ -24,10 +24,17 @@ def lines_note(ctx: Context, *nodes: ast.AST) -> str:
     return f" (from line {', '.join(map(str, others))})" if others else ""
 
 
+_DIVIDES = {"div", "divide", "true_divide", "truediv", "realdiv"}
+
+
 def division(ctx: Context) -> tuple[Ref, Ref, Ref] | None:
     """(division, numerator, denominator) for ``a / b``, ``a /= b`` and the division
     functions and methods (``np.divide(a, b)``, ``torch.div(a, b)``, ``a.div(b)``)."""
     node = ctx.node
+    if isinstance(node, ast.Call):
+        f = node.func
+        if (f.attr if isinstance(f, ast.Attribute) else f.id if isinstance(f, ast.Name) else "") not in _DIVIDES:
+            return None
     parts = facts.div_parts(ctx.ref()) if isinstance(node, (ast.BinOp, ast.Call)) else None
     if parts is not None:
         return ctx.ref(), *parts

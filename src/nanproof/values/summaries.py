@@ -162,10 +162,8 @@ def spec_of(callee: Ref, binding, qual: str | None) -> tuple[tuple[str, tuple[st
 def project_lookup(scope: Scope, spec, name: str, what: str = "function") -> tuple | None:
     """(kind, items, path, line) for ``name`` of the module ``spec`` names, from the table."""
     table = _analysis(scope).project.get("returns")
-    if not table:
-        return None
-    for (mod_parts, fname, w), value in table.items():
-        if fname == name and w == what and spec_matches(spec, mod_parts):
+    for mod_parts, w, value in table.get(name, ()) if table else ():
+        if w == what and spec_matches(spec, mod_parts):
             return value
     return None
 
@@ -226,7 +224,11 @@ def calls_on_lines(module: Scope, lines: list[int], names: set[str]) -> list[Ref
 
 
 def _lines_matching(text: str, pattern: re.Pattern) -> list[int]:
-    return sorted({text.count("\n", 0, m.start()) + 1 for m in pattern.finditer(text)})
+    found = [m.start() for m in pattern.finditer(text)]
+    if not found:
+        return []
+    starts = [0] + [m.end() for m in re.finditer("\n", text)]
+    return sorted({bisect.bisect_right(starts, pos) for pos in found})
 
 
 def argument_for(call: ast.Call, index: int | None, name: str) -> ast.expr | None:
@@ -252,11 +254,32 @@ def _is_method(fn: ast.AST, owner: Scope) -> bool:
     return "staticmethod" not in decos and "classmethod" not in decos
 
 
+_DEF = re.compile(r"\bdef\s+([A-Za-z_]\w*)")
+
+
+def _word_index(module: Scope) -> dict[str, list[tuple[int, str]]]:
+    """Every occurrence of a name the file defines a function by, in its text (strings
+    and comments included: more uses only means more silence) -> (line, how it is
+    written): "call" for ``f(``, "self-call" for ``self.f(``, "attr" for another ``.f``,
+    "name" otherwise. One pass per file."""
+    index = module.cache.get("words")
+    if index is None:
+        text = _analysis(module).text
+        starts = [0] + [m.end() for m in re.finditer("\n", text)]
+        index = {}
+        names = sorted(set(_DEF.findall(text)), key=len, reverse=True)
+        word = re.compile(r"(\bself\s*\.\s*)?(\.\s*)?\b(" + "|".join(map(re.escape, names)) + r")\b(\s*\()?") if names else None
+        for m in word.finditer(text) if word else ():
+            self_dot, dot, name, paren = m.groups()
+            how = ("self-call" if paren else "attr") if self_dot else "attr" if dot else "call" if paren else "name"
+            index.setdefault(name, []).append((bisect.bisect_right(starts, m.start(3)) , how))
+        module.cache["words"] = index
+    return index
+
+
 def local_sites(fn: ast.FunctionDef | ast.AsyncFunctionDef, owner: Scope) -> list[Ref] | None:
     """Every call of ``fn`` in its own file (``f(...)``, or ``self.f(...)`` for a method);
     None when the function also escapes as a value or is called in a way not followed."""
-    analysis = _analysis(owner)
-    text = analysis.text
     name = fn.name
     method = _is_method(fn, owner)
     key = ("sites", id(fn))
@@ -264,21 +287,24 @@ def local_sites(fn: ast.FunctionDef | ast.AsyncFunctionDef, owner: Scope) -> lis
     if key in cache:
         return cache[key]
     cache[key] = None
-    esc = re.escape(name)
-    if method:
-        # any ``.name`` not written as ``self.name(`` may be a call we cannot resolve
-        uses = re.compile(r"\.\s*" + esc + r"\b")
-        calls = re.compile(r"\bself\s*\.\s*" + esc + r"\s*\(")
-    else:
-        uses = re.compile(r"(?<![\w.])" + esc + r"\b")
-        calls = re.compile(r"(?<![\w.])" + esc + r"\s*\(")
+    text = _analysis(owner).text
+    if text.count(name) < 2:  # only the def: no call site here (no index built)
+        cache[key] = []
+        return []
+    uses = _word_index(owner.module).get(name, [])
     # a name used other than in a call (``map(f, xs)``, ``key=f``, ``self.f`` passed on)
-    # may be called where we cannot see; strings and comments count too (silence).
-    if len(uses.findall(text)) != len(calls.findall(text)):
-        return None
-    call_lines = _lines_matching(text, calls)
+    # may be called where we cannot see: unknown.
+    uses = [(line, how) for line, how in uses if not (line == fn.lineno and how == "call")]  # the def
+    if method:
+        if any(how in ("attr", "call") for _, how in uses):
+            return None
+        call_lines = sorted({line for line, how in uses if how == "self-call"})
+    else:
+        if any(how in ("name", "attr", "self-call") for _, how in uses):
+            return None
+        call_lines = sorted({line for line, how in uses if how == "call"})
     sites = []
-    for ref in calls_on_lines(analysis.module, call_lines, {name}):
+    for ref in calls_on_lines(owner.module, call_lines, {name}):
         f = ref.node.func
         if method:
             if not (isinstance(f, ast.Attribute) and isinstance(f.value, ast.Name) and f.value.id == "self"):
@@ -324,6 +350,8 @@ def param_origin(ref: Ref, b, depth: int):
     sites = local_sites(fn, owner)
     if sites is None:
         return None
+    if isinstance(owner.node, ast.Module):  # other files' calls may decide it: ask for them
+        analysis.module.cache.setdefault("wanted", set()).add(fn.name)
     remote = _remote_passes(owner, fn, method, index, b.name)
     if remote is None or len(sites) + len(remote) == 0 or len(sites) > MAX_SITES:
         return None
@@ -413,6 +441,8 @@ def file_links(analysis, lines: list[int]) -> tuple[tuple, tuple, tuple]:
         elif isinstance(stmt, ast.Import):
             imports.extend(a.asname or a.name for a in stmt.names if not framework_of(a.name))
     passes = []
+    wanted = analysis.project.get("wanted", set())
+    imported = {k: v for k, v in imported.items() if v[1] in wanted}  # what another file asked for
     if imported:
         pattern = re.compile(r"(?<![\w.])(?:" + "|".join(map(re.escape, imported)) + r")\s*\(")
         call_lines = _lines_matching(analysis.text, pattern)
@@ -433,6 +463,7 @@ def file_links(analysis, lines: list[int]) -> tuple[tuple, tuple, tuple]:
                 if kw.arg is not None:
                     args.append((kw.arg, *_passed(origin(site.child(kw.value)))))
             passes.append((name, spec, tuple(args), analysis.path, site.node.lineno))
+    exports.extend((name, "wanted", None, None, 0) for name in sorted(module.cache.get("wanted", ())))
     return tuple(exports), tuple(imports), tuple(passes)
 
 
@@ -443,33 +474,55 @@ def _passed(o) -> tuple:
     return o.kind, o.where or f"line {o.line}"
 
 
+def _package_key(parts: tuple[str, ...]) -> str:
+    parts = parts[:-1] if parts and parts[-1] == "__init__" else parts
+    return parts[-1] if parts else ""
+
+
 def project_table(results) -> dict:
-    """The table every file's second analysis reads: what functions and instances of
-    classes return, and what calls pass to functions of other files."""
-    returns, passes = {}, {}
+    """The table the later analyses read, indexed by name: what functions and instances
+    of classes of each file return, which functions want to know what other files pass
+    to them, and what calls pass to functions of other files."""
+    returns: dict[str, list] = {}
+    heads: dict[str, list] = {}
+    by_module: dict[str, list] = {}
+    wanted: set[str] = set()
+    passes: dict[str, list] = {}
+    passes_to: dict[str, list] = {}
     for r in results:
         parts = module_parts(r.path)
         for name, what, kind, items, line in r.exports:
-            returns[(parts, name, what)] = (kind, items, r.path, line)
+            if what == "wanted":
+                wanted.add(name)
+                continue
+            value = (kind, items, r.path, line)
+            returns.setdefault(name, []).append((parts, what, value))
+            heads.setdefault(name.split(".")[0], []).append((parts, name, what, value))  # Cls.method under Cls
+            by_module.setdefault(_package_key(parts), []).append((parts, name, what, value))
         for name, spec, args, path, line in r.passes:
             passes.setdefault(name, []).append((spec, args, path, line))
-    return {"returns": returns, "passes": passes}
+            passes_to.setdefault(spec[1][-1] if spec[1] else "", []).append((name, spec, args, path, line))
+    return {"returns": returns, "heads": heads, "by_module": by_module, "wanted": wanted, "passes": passes, "passes_to": passes_to}
 
 
 def relevant(table: dict, result) -> tuple:
     """The part of the project table a file's analysis reads: what the names it imports
-    return, and what other files pass to its functions. A file is analysed again when
-    this part changes."""
+    return, which of them want their call sites, and what other files pass to its
+    functions. A file is analysed again when this part changes."""
     imports = set(result.imports)
-    if not imports and not table["passes"]:
-        return ()
     mine = module_parts(result.path)
     got = []
-    for (parts, name, what), value in table["returns"].items():
-        if parts != mine and (name.split(".")[0] in imports or (parts and parts[-1] in imports)):
-            got.append((parts, name, what, value))
-    for name, recs in table["passes"].items():
-        for spec, args, path, line in recs:
-            if path != result.path and spec_matches(spec, mine):
-                got.append((name, spec, args, path, line))
-    return tuple(sorted(got, key=repr))
+    for name in imports:
+        for parts, full, what, value in table["heads"].get(name, ()):
+            if parts != mine:
+                got.append((parts, full, what, value))
+        for parts, full, what, value in table["by_module"].get(name, ()):
+            if parts != mine:
+                got.append((parts, full, what, value))
+        if name in table["wanted"]:
+            got.append(("wanted", name))
+    for rec in table["passes_to"].get(_package_key(mine), ()):
+        name, spec, args, path, line = rec
+        if path != result.path and spec_matches(spec, mine):
+            got.append(rec)
+    return tuple(sorted(set(got), key=repr))
